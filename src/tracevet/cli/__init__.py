@@ -1,0 +1,1 @@
+"""Command-line interface: thin wrappers over the core layers."""
