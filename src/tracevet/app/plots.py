@@ -1,0 +1,387 @@
+"""Character plots of a recording: original, cleaned, removed; averaged beats.
+
+Everything here returns plain strings (plotext output, with or without ANSI
+colour codes) plus the numbers the app prints beside them; nothing imports
+Textual. The traces are first reduced with :mod:`tracevet.app.envelope`, so
+the cost of a plot depends on its width in columns, not on the length of
+the record or of the window.
+
+Layout conventions shared by every plot here:
+
+* the y tick labels have a fixed width (:data:`Y_LABEL_WIDTH`), so stacked
+  plots have their canvases in the same columns and share one time axis;
+* braille markers give two plot pixels per column, so a window is reduced
+  to ``2 * canvas_columns`` bins;
+* the original and cleaned plots share one y range (so flattened peaks
+  show), while the removed component gets its own range, printed in its
+  label together with its size relative to the original.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+from dataclasses import dataclass, field
+
+import numpy as np
+import plotext
+
+from tracevet.app.envelope import MinMaxPyramid
+
+Y_LABEL_WIDTH = 8
+# plotext puts one blank column between the tick labels and the canvas.
+CANVAS_OFFSET = Y_LABEL_WIDTH + 1
+
+# Okabe & Ito (2008) colour-blind safe palette ("Color Universal Design"):
+# orange, sky blue, reddish purple; the grey is for tick labels.
+TRACE_COLOURS = {
+    "original": (230, 159, 0),
+    "cleaned": (86, 180, 233),
+    "removed": (204, 121, 167),
+}
+TICK_COLOUR = 245
+
+_THEME = "tracevet-traces"
+plotext.add_theme(
+    _THEME,
+    text=plotext.pixel(foreground=TICK_COLOUR),
+    sequence=list(TRACE_COLOURS.values()),
+)
+plotext.terminal.limit(False, False)
+# plotext keeps one global figure; builds from worker threads take turns.
+_PLOTEXT_LOCK = threading.Lock()
+
+
+@dataclass
+class TracePyramids:
+    """Min/max pyramids of the three traces of one channel.
+
+    Attributes
+    ----------
+    fs : float
+        Sampling rate in Hz.
+    original, cleaned, removed : MinMaxPyramid
+        ``removed`` is ``original - cleaned`` (float32).
+    """
+
+    fs: float
+    original: MinMaxPyramid
+    cleaned: MinMaxPyramid
+    removed: MinMaxPyramid
+
+    @classmethod
+    def from_arrays(cls, original, cleaned, fs: float) -> "TracePyramids":
+        """Build the pyramids of one channel; ``removed = original - cleaned``."""
+        original = np.ascontiguousarray(original, dtype=np.float32)
+        cleaned = np.ascontiguousarray(cleaned, dtype=np.float32)
+        if original.shape != cleaned.shape:
+            raise ValueError(f"original {original.shape} and cleaned {cleaned.shape} differ in shape")
+        return cls(float(fs), MinMaxPyramid(original), MinMaxPyramid(cleaned), MinMaxPyramid(original - cleaned))
+
+    @property
+    def duration_s(self) -> float:
+        """Duration of the traces in seconds."""
+        return len(self.original) / self.fs
+
+
+@dataclass(frozen=True)
+class Region:
+    """A flagged stretch of time to mark under the plots."""
+
+    start_s: float
+    end_s: float
+    severity: str  # "warn" or "fail"
+
+
+@dataclass(frozen=True)
+class PlotText:
+    """One rendered plot and the numbers printed beside it."""
+
+    name: str
+    text: str
+    y_low: float
+    y_high: float
+
+
+@dataclass(frozen=True)
+class TracePlots:
+    """The three stacked plots of a window, plus labels."""
+
+    start_s: float
+    end_s: float
+    plots: tuple[PlotText, ...]
+    removed_ratio: float  # peak-to-peak of removed / peak-to-peak of original, in the window
+    flag_strip: tuple[str, ...] = field(default_factory=tuple)  # per canvas column: "", "warn", "fail"
+    canvas_columns: int = 0
+
+
+def canvas_columns(width: int) -> int:
+    """Number of canvas columns of a plot ``width`` columns wide."""
+    return max(int(width) - CANVAS_OFFSET, 4)
+
+
+def format_clock(seconds: float, span_s: float | None = None) -> str:
+    """Format a time in seconds as ``s``, ``m:ss`` or ``h:mm:ss`` with sensible decimals.
+
+    ``span_s`` (the width of the window shown) decides how many decimals are
+    needed to tell neighbouring ticks apart.
+    """
+    span = abs(span_s) if span_s else abs(seconds)
+    decimals = 2 if span < 2 else 1 if span < 60 else 0
+    sign = "-" if seconds < 0 else ""
+    seconds = abs(seconds)
+    if seconds < 60 and (span_s is None or span_s < 60):
+        return f"{sign}{seconds:.{decimals}f}s"
+    whole = int(seconds)
+    frac = seconds - whole
+    h, rem = divmod(whole, 3600)
+    m, s = divmod(rem, 60)
+    tail = f"{s + frac:0{3 + decimals if decimals else 2}.{decimals}f}" if decimals else f"{s:02d}"
+    return f"{sign}{h}:{m:02d}:{tail}" if h else f"{sign}{m}:{tail}"
+
+
+def format_value(value: float) -> str:
+    """Format an amplitude compactly (4 significant digits, no exponent for common sizes)."""
+    if value == 0 or not math.isfinite(value):
+        return f"{value:g}"
+    magnitude = abs(value)
+    if 1e-3 <= magnitude < 1e5:
+        digits = max(0, 3 - int(math.floor(math.log10(magnitude))))
+        return f"{value:.{min(digits, 4)}f}"
+    return f"{value:.2e}"
+
+
+def nice_ticks(low: float, high: float, max_ticks: int) -> np.ndarray:
+    """Round tick positions (1, 2, 5 x 10^k steps) inside ``[low, high]``.
+
+    Common practice for axis labelling (the "nice numbers" rule of thumb).
+    """
+    span = high - low
+    if span <= 0 or max_ticks < 1:
+        return np.array([low])
+    raw = span / max_ticks
+    power = 10 ** math.floor(math.log10(raw))
+    step = next(m * power for m in (1, 2, 5, 10) if m * power >= raw)
+    if span > 90:  # minutes and hours read better on clock-friendly steps
+        for clock_step in (60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600):
+            if clock_step >= raw:
+                step = clock_step
+                break
+    first = math.ceil(low / step) * step
+    return np.arange(first, high + step * 1e-9, step)
+
+
+def _y_range(low: float, high: float) -> tuple[float, float]:
+    if not (math.isfinite(low) and math.isfinite(high)):
+        return -1.0, 1.0
+    if high - low < 1e-12:
+        pad = max(abs(high), 1.0) * 0.05
+        return low - pad, high + pad
+    return low, high
+
+
+def _padded(label: str) -> str:
+    return label[-Y_LABEL_WIDTH:].rjust(Y_LABEL_WIDTH)
+
+
+def _new_figure(width: int, height: int, colour: bool):
+    fig = plotext.figure
+    fig.clear()
+    fig.plot_size(int(width), int(height))
+    fig.axes(False)
+    fig.theme(_THEME if colour else "colorless")
+    fig.canvas("default")
+    return fig
+
+
+def _render_plot(
+    fig,
+    series,
+    x_low: float,
+    x_high: float,
+    y_low: float,
+    y_high: float,
+    x_ticks: tuple[np.ndarray, list[str]] | None,
+    colour: bool,
+) -> str:
+    for x, y, rgb, marker in series:
+        styled = plotext.marker(marker, pixel=plotext.pixel(foreground=rgb)) if colour else marker
+        signal = fig.signal(x, y, marker=styled)
+        if marker == "braille":
+            signal.lines()
+        fig.draw(signal)
+    fig.ruler("x").lim(x_low, x_high)
+    fig.ruler("y").lim(y_low, y_high)
+    fig.ruler("y").ticks([y_low, y_high], [_padded(format_value(y_low)), _padded(format_value(y_high))])
+    if x_ticks is None:
+        fig.ruler("x").ticks([])
+    else:
+        fig.ruler("x").ticks(list(x_ticks[0]), x_ticks[1])
+    return fig.build().string(colorless=not colour).rstrip("\n")
+
+
+def render_trace_plots(
+    traces: TracePyramids,
+    start_s: float,
+    span_s: float,
+    width: int,
+    heights: tuple[int, int, int],
+    colour: bool = True,
+    regions: tuple[Region, ...] = (),
+) -> TracePlots:
+    """Render original, cleaned and removed for one time window.
+
+    Parameters
+    ----------
+    traces : TracePyramids
+        The channel to draw.
+    start_s, span_s : float
+        Window start and width in seconds (clipped to the record).
+    width : int
+        Plot width in terminal columns (tick labels included).
+    heights : (int, int, int)
+        Rows of each plot; the last one also carries the time tick labels
+        (one row of it).
+    colour : bool
+        False gives plain text (for ``NO_COLOR`` terminals).
+    regions : tuple of Region
+        Flagged stretches, turned into a per-column flag strip.
+
+    Returns
+    -------
+    TracePlots
+    """
+    fs = traces.fs
+    n = len(traces.original)
+    span_n = max(int(round(span_s * fs)), 2)
+    start_n = int(round(start_s * fs))
+    start_n = min(max(start_n, 0), max(n - span_n, 0))
+    stop_n = min(start_n + span_n, n)
+    x_low, x_high = start_n / fs, max(stop_n - 1, start_n + 1) / fs
+    columns = canvas_columns(width)
+    bins = 2 * columns
+    envs = {
+        name: getattr(traces, name).reduce(start_n, stop_n, bins) for name in ("original", "cleaned", "removed")
+    }
+    shared_low = float(min(envs["original"].bin_min.min(), envs["cleaned"].bin_min.min()))
+    shared_high = float(max(envs["original"].bin_max.max(), envs["cleaned"].bin_max.max()))
+    shared = _y_range(shared_low, shared_high)
+    removed = _y_range(float(envs["removed"].bin_min.min()), float(envs["removed"].bin_max.max()))
+    orig_ptp = float(envs["original"].bin_max.max() - envs["original"].bin_min.min())
+    removed_ptp = float(envs["removed"].bin_max.max() - envs["removed"].bin_min.min())
+    ratio = removed_ptp / orig_ptp if orig_ptp > 0 else 0.0
+
+    tick_pos = nice_ticks(x_low, x_high, max(1, columns // 12))
+    tick_labels = [format_clock(t, x_high - x_low) for t in tick_pos]
+    plots = []
+    with _PLOTEXT_LOCK:
+        for index, name in enumerate(("original", "cleaned", "removed")):
+            env = envs[name]
+            y_low, y_high = removed if name == "removed" else shared
+            fig = _new_figure(width, heights[index], colour)
+            last = index == 2
+            text = _render_plot(
+                fig,
+                [(env.times(fs), env.values, TRACE_COLOURS[name], "braille")],
+                x_low,
+                x_high,
+                y_low,
+                y_high,
+                (tick_pos, tick_labels) if last else None,
+                colour,
+            )
+            plots.append(PlotText(name, text, y_low, y_high))
+    strip = flag_strip(regions, x_low, x_high, columns)
+    return TracePlots(x_low, x_high, tuple(plots), ratio, strip, columns)
+
+
+_SEVERITY_RANK = {"": 0, "warn": 1, "fail": 2}
+
+
+def flag_strip(regions, x_low: float, x_high: float, columns: int) -> tuple[str, ...]:
+    """Per canvas column, the worst severity of the flagged regions it overlaps."""
+    strip = [""] * columns
+    span = x_high - x_low
+    if span <= 0:
+        return tuple(strip)
+    for region in regions:
+        if region.end_s < x_low or region.start_s > x_high:
+            continue
+        first = int(math.floor((max(region.start_s, x_low) - x_low) / span * (columns - 1)))
+        last = int(math.ceil((min(region.end_s, x_high) - x_low) / span * (columns - 1)))
+        for col in range(max(first, 0), min(last, columns - 1) + 1):
+            if _SEVERITY_RANK.get(region.severity, 0) > _SEVERITY_RANK[strip[col]]:
+                strip[col] = region.severity
+    return tuple(strip)
+
+
+def render_beat_overlay(
+    time_s,
+    original_template,
+    cleaned_template,
+    width: int,
+    heights: tuple[int, int],
+    colour: bool = True,
+) -> tuple[PlotText, PlotText]:
+    """Render the averaged beat: original and cleaned templates overlaid, and their difference.
+
+    Parameters
+    ----------
+    time_s : array_like
+        Time of each template sample relative to the R peak, in seconds.
+    original_template, cleaned_template : array_like
+        The averaged beats (same length as ``time_s``).
+    width : int
+        Plot width in columns.
+    heights : (int, int)
+        Rows of the overlay plot and of the difference plot (the latter
+        also carries the time ticks, in milliseconds).
+    colour : bool
+        False gives plain text; the cleaned template is then drawn with dots
+        so the two stay distinguishable without colour.
+
+    Returns
+    -------
+    (PlotText, PlotText)
+        The overlay and the difference (original minus cleaned template).
+    """
+    t = np.asarray(time_s, dtype=np.float64)
+    orig = np.asarray(original_template, dtype=np.float32)
+    clean = np.asarray(cleaned_template, dtype=np.float32)
+    diff = orig - clean
+    columns = canvas_columns(width)
+    if t.size > 4 * columns:  # templates are short; thin only if the plot is tiny
+        from tracevet.app.envelope import reduce_window
+
+        def thin(y):
+            env = reduce_window(y, 0, y.size, 2 * columns)
+            return t[env.positions], env.values
+
+    else:
+
+        def thin(y):
+            return t, y
+
+    low, high = _y_range(float(min(orig.min(), clean.min())), float(max(orig.max(), clean.max())))
+    d_low, d_high = _y_range(float(diff.min()), float(diff.max()))
+    x_low, x_high = float(t[0]), float(t[-1])
+    ms = nice_ticks(x_low * 1000, x_high * 1000, max(1, columns // 10))
+    ticks = (ms / 1000.0, [f"{m:g}ms" for m in ms])
+    with _PLOTEXT_LOCK:
+        fig = _new_figure(width, heights[0], colour)
+        clean_marker = "braille" if colour else "dot"
+        overlay = _render_plot(
+            fig,
+            [(*thin(orig), TRACE_COLOURS["original"], "braille"), (*thin(clean), TRACE_COLOURS["cleaned"], clean_marker)],
+            x_low,
+            x_high,
+            low,
+            high,
+            None,
+            colour,
+        )
+        fig = _new_figure(width, heights[1], colour)
+        difference = _render_plot(
+            fig, [(*thin(diff), TRACE_COLOURS["removed"], "braille")], x_low, x_high, d_low, d_high, ticks, colour
+        )
+    return PlotText("beat", overlay, low, high), PlotText("beat difference", difference, d_low, d_high)
