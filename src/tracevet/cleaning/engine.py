@@ -1,0 +1,243 @@
+"""The cleaning engine: filters, then wavelet shrinkage, per channel, in blocks.
+
+For each channel independently:
+
+1. zero-phase baseline removal and mains notches (:mod:`tracevet.cleaning.filters`),
+   if switched on;
+2. thresholds: the noise level and one threshold per detail level are
+   estimated from the decimated detail coefficients of the whole (filtered)
+   channel (:mod:`tracevet.cleaning.thresholds`, :mod:`tracevet.cleaning.noise`);
+3. shrinkage with the DWT or SWT (:mod:`tracevet.cleaning.shrinkage`).
+
+Long records are processed in overlapping blocks (:mod:`tracevet.cleaning.blocks`)
+with overlaps wide enough that the joins cannot be seen: the result equals
+whole-record processing to float rounding, while memory stays bounded. The
+statistics behind the thresholds always cover the whole record: every
+coefficient of a level when the level has at most ``STATS_MAX_COEFFS``
+coefficients, otherwise an evenly spaced subsample of that many.
+
+Float32 input is processed in float32; anything else in float64.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Callable
+
+import numpy as np
+import pywt
+
+from tracevet.cleaning import filters, shrinkage, thresholds
+from tracevet.cleaning.blocks import DEFAULT_BLOCK_SAMPLES, plan_blocks, process_inplace
+from tracevet.cleaning.levels import resolve_level
+from tracevet.cleaning.noise import level_sigmas
+from tracevet.cleaning.settings import CleaningSettings
+from tracevet.recording.model import Recording
+
+Progress = Callable[[float], None] | None
+
+# Statistics for the thresholds use at most this many coefficients per level.
+STATS_MAX_COEFFS = 1 << 21
+
+
+def _work_dtype(x: np.ndarray) -> np.dtype:
+    return np.dtype(np.float32) if x.dtype == np.float32 else np.dtype(np.float64)
+
+
+class _Stages:
+    """Turns (stage, block) progress into overall fractions for one channel."""
+
+    def __init__(self, progress: Progress, start: float, width: float, weights: list[float]):
+        self.progress, self.start, self.width = progress, start, width
+        total = sum(weights) or 1.0
+        self.bounds = np.concatenate(([0.0], np.cumsum(weights) / total))
+
+    def report(self, stage: int, fraction: float) -> None:
+        if self.progress is None:
+            return
+        lo, hi = self.bounds[stage], self.bounds[stage + 1]
+        self.progress(float(self.start + self.width * (lo + (hi - lo) * min(max(fraction, 0.0), 1.0))))
+
+
+def _apply_filters(buf: np.ndarray, fs: float, settings: CleaningSettings, block_samples: int, report) -> None:
+    stages = filters.stage_filters(fs, settings)
+    for sos, lowest in stages:
+        overlap = filters.settle_samples(fs, lowest)
+        blocks = plan_blocks(buf.shape[0], max(block_samples, 4 * overlap), overlap)
+        process_inplace(
+            buf,
+            blocks,
+            lambda seg, _b, sos=sos, lowest=lowest: filters.zero_phase(seg, sos, fs, lowest),
+            after_block=lambda i, n=len(blocks): report((i + 1) / n),
+        )
+
+
+def _wavelet_overlap(wavelet: str, level: int) -> int:
+    return max(shrinkage.swt_reach(wavelet, level), 2 * pywt.Wavelet(wavelet).dec_len * (1 << level))
+
+
+def level_thresholds(
+    buf: np.ndarray, settings: CleaningSettings, level: int, block_samples: int = DEFAULT_BLOCK_SAMPLES
+) -> list[float]:
+    """Thresholds in signal units for detail levels 1..level (finest first).
+
+    Statistics come from the decimated (DWT) detail coefficients of the whole
+    channel, computed block by block on the same dyadic grid; for the SWT
+    these are the decimation-phase-0 subset of its coefficients at each
+    level, with the same distribution. The sample size ``n`` of the
+    universal and minimax rules is the number of samples of the channel; the
+    level size ``d`` of SURE and hybrid is the number of coefficients of the
+    level.
+    """
+    n = buf.shape[0]
+    wavelet, mode = settings.wavelet, settings.extension
+    align = 1 << level
+    blocks = plan_blocks(n, block_samples, _wavelet_overlap(wavelet, level), align)
+    totals = [max(1, n >> j) for j in range(1, level + 1)]
+    strides = [max(1, math.ceil(t / STATS_MAX_COEFFS)) for t in totals]
+    parts: list[list[np.ndarray]] = [[] for _ in range(level)]
+    peaks = [0.0] * level
+    for block in blocks:
+        details = shrinkage.dwt_details(buf[block.start : block.stop], wavelet, mode, level)
+        for j in range(1, level + 1):
+            d = details[j - 1]
+            lo = block.core_offset >> j
+            hi = min(d.shape[0], (block.core_offset + block.core_stop - block.core_start) >> j)
+            if hi <= lo:
+                continue
+            core = d[lo:hi]
+            peaks[j - 1] = max(peaks[j - 1], float(np.max(np.abs(core))))
+            stride = strides[j - 1]
+            first = (-(lo + (block.start >> j))) % stride
+            parts[j - 1].append(np.array(core[first::stride], dtype=np.float64))
+    coeffs = [np.concatenate(p) if p else np.zeros(1) for p in parts]
+    sigmas = level_sigmas(coeffs, settings.noise_estimate)
+    lams = []
+    for j, (d, sigma) in enumerate(zip(coeffs, sigmas), start=1):
+        d_level = totals[j - 1]
+        if sigma <= 0:
+            lams.append(0.0)
+        elif settings.rule == "universal":
+            lams.append(thresholds.universal_threshold(n, sigma))
+        elif settings.rule == "minimax":
+            lams.append(sigma * thresholds.minimax_threshold(n))
+        elif settings.rule == "sure":
+            upper = math.sqrt(2.0 * math.log(max(d_level, 2)))
+            lams.append(sigma * thresholds.sure_threshold(d / sigma, upper=upper))
+        elif settings.rule == "hybrid":
+            lams.append(sigma * thresholds.hybrid_sure_threshold(d / sigma, n_level=d_level))
+        elif settings.rule == "bayes":
+            lams.append(thresholds.bayes_threshold(d, sigma, max_abs=peaks[j - 1]))
+        else:  # guarded by CleaningSettings validation
+            raise ValueError(f"unknown rule {settings.rule!r}")
+    return lams
+
+
+def clean_channel(
+    x: np.ndarray,
+    fs: float,
+    settings: CleaningSettings,
+    source: str = "recording",
+    progress: Progress = None,
+    block_samples: int = DEFAULT_BLOCK_SAMPLES,
+    out: np.ndarray | None = None,
+) -> np.ndarray:
+    """Clean one channel and return it (float32 in, float32 out; else float64).
+
+    Parameters
+    ----------
+    x : 1-D array
+        The channel.
+    fs : float
+        Sampling rate in Hz.
+    settings : CleaningSettings
+    source : str
+        Named in error messages.
+    progress : callable(fraction), optional
+        Called with fractions in [0, 1] between stages and blocks; an
+        exception it raises stops the cleaning and propagates.
+    block_samples : int
+        Core length of the blocks long records are processed in.
+    out : 1-D array, optional
+        Where to write the result (may share memory with nothing else).
+    """
+    x = np.asarray(x)
+    n = x.shape[0]
+    level = resolve_level(settings, fs, n, settings.wavelet, source=source)
+    dtype = _work_dtype(x)
+    if out is None:
+        out = np.empty(n, dtype=dtype)
+    buf = out
+    buf[:] = x
+    n_filters = len(filters.stage_filters(fs, settings))
+    weights = [1.0] * n_filters + [0.5, 2.0 if settings.transform == "swt" else 1.0]
+    stages = _Stages(progress, 0.0, 1.0, weights)
+    stages.report(0, 0.0)
+    current = [0]
+
+    def filter_report(fraction: float) -> None:
+        stages.report(current[0], fraction)
+        if fraction >= 1.0:
+            current[0] += 1
+
+    _apply_filters(buf, fs, settings, block_samples, filter_report)
+    lams = level_thresholds(buf, settings, level, block_samples)
+    stages.report(n_filters, 1.0)
+    shrink = shrinkage.swt_shrink if settings.transform == "swt" else shrinkage.dwt_shrink
+    blocks = plan_blocks(n, block_samples, _wavelet_overlap(settings.wavelet, level), 1 << level)
+    process_inplace(
+        buf,
+        blocks,
+        lambda seg, _b: shrink(seg, settings.wavelet, settings.extension, level, lams, settings.threshold_mode),
+        after_block=lambda i: stages.report(n_filters + 1, (i + 1) / len(blocks)),
+    )
+    return buf
+
+
+def clean(
+    recording: Recording,
+    settings: CleaningSettings,
+    progress: Progress = None,
+    block_samples: int = DEFAULT_BLOCK_SAMPLES,
+) -> Recording:
+    """Clean every channel of ``recording`` independently with ``settings``.
+
+    Returns a new :class:`Recording` with the same shape, dtype (float32
+    stays float32), rate, channel names, units, kind and start time.
+
+    Parameters
+    ----------
+    recording : Recording
+    settings : CleaningSettings
+    progress : callable(fraction: float), optional
+        Called between stages, blocks and channels with the fraction done
+        (0 to 1). If it raises, cleaning stops and the exception propagates
+        (used to cancel).
+    block_samples : int
+        Core length of the blocks long records are processed in; the result
+        does not depend on it beyond float rounding.
+
+    Raises
+    ------
+    SettingsError
+        The record is too short for the requested level, or a filter does not
+        fit the sampling rate; the message names the recording's source.
+    """
+    if not isinstance(settings, CleaningSettings):
+        raise TypeError("settings must be a CleaningSettings")
+    samples = recording.samples
+    n, n_channels = samples.shape
+    dtype = _work_dtype(samples)
+    resolve_level(settings, recording.fs, n, settings.wavelet, source=recording.source)
+    result = np.empty((n, n_channels), dtype=dtype)
+    for c in range(n_channels):
+        sub = None
+        if progress is not None:
+            sub = lambda f, c=c: progress((c + f) / n_channels)  # noqa: E731
+        if n_channels == 1:
+            clean_channel(samples[:, 0], recording.fs, settings, recording.source, sub, block_samples, out=result.reshape(n))
+        else:
+            result[:, c] = clean_channel(samples[:, c], recording.fs, settings, recording.source, sub, block_samples)
+    if progress is not None:
+        progress(1.0)
+    return recording.with_samples(result)
