@@ -29,8 +29,8 @@ import plotext
 from tracevet.app.envelope import MinMaxPyramid
 
 Y_LABEL_WIDTH = 8
-# plotext puts one blank column between the tick labels and the canvas.
-CANVAS_OFFSET = Y_LABEL_WIDTH + 1
+# The canvas starts right after the tick labels; each label ends with a blank.
+CANVAS_OFFSET = Y_LABEL_WIDTH
 
 # Okabe & Ito (2008) colour-blind safe palette ("Color Universal Design"):
 # orange, sky blue, reddish purple; the grey is for tick labels.
@@ -181,7 +181,7 @@ def _y_range(low: float, high: float) -> tuple[float, float]:
 
 
 def _padded(label: str) -> str:
-    return label[-Y_LABEL_WIDTH:].rjust(Y_LABEL_WIDTH)
+    return label[-(Y_LABEL_WIDTH - 1) :].rjust(Y_LABEL_WIDTH - 1) + " "
 
 
 def _new_figure(width: int, height: int, colour: bool):

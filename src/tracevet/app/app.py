@@ -1,0 +1,90 @@
+"""The review app: one Textual ``App`` holding the queue, the reviewer and the open claim."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+from textual.app import App
+from textual.binding import Binding
+
+from tracevet.app.display import CAUTION  # noqa: F401 - re-exported for the CLI
+from tracevet.app.worklist_screen import WorklistScreen
+
+
+# How often an open record's claim is refreshed while the reviewer works on it.
+CLAIM_TOUCH_SECONDS = 30.0
+
+
+class ReviewApp(App):
+    """Step through a queue, look at what cleaning did, decide, re-run, sign off.
+
+    Parameters
+    ----------
+    queue : tracevet.workqueue.Queue
+        The open queue.
+    reviewer : str
+        Name written into claims and decisions.
+    colour : bool, optional
+        Draw coloured plots; default: on unless ``NO_COLOR`` is set.
+    """
+
+    CSS_PATH = Path(__file__).with_name("review.tcss")
+    TITLE = "tracevet review"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [
+        Binding("question_mark,f1", "help", "Keys", key_display="?"),
+        Binding("ctrl+q", "quit", "Quit", show=False, priority=True),
+    ]
+    KEY_HELP = {"help": "this help (keys of the screen you are on)", "quit": "quit from anywhere"}
+
+    def __init__(self, queue, reviewer: str, colour: bool | None = None):
+        super().__init__()
+        self.queue = queue
+        self.reviewer = reviewer
+        self.colour = (os.environ.get("NO_COLOR") is None) if colour is None else bool(colour)
+        self.held_claim: str | None = None
+
+    def on_mount(self) -> None:
+        """Show the worklist and start refreshing held claims."""
+        self.push_screen(WorklistScreen())
+        self.set_interval(CLAIM_TOUCH_SECONDS, self.touch_held_claim)
+
+    def action_help(self) -> None:
+        """Open the key reference for the screen on top."""
+        from tracevet.app.help_screen import HelpScreen
+
+        if not isinstance(self.screen, HelpScreen):
+            self.push_screen(HelpScreen(self.screen))
+
+    async def action_quit(self) -> None:
+        """Quit, releasing the open record first."""
+        self.release_claim()
+        self.exit()
+
+    # -- claims -------------------------------------------------------
+    def claim(self, record_id: str) -> None:
+        """Claim ``record_id`` for this reviewer (raises ClaimedByOther)."""
+        self.queue.claim(record_id, self.reviewer)
+        self.held_claim = record_id
+
+    def release_claim(self) -> None:
+        """Release the record this app holds, if any."""
+        record_id, self.held_claim = self.held_claim, None
+        if record_id is not None:
+            try:
+                self.queue.release(record_id, self.reviewer)
+            except Exception as exc:  # a lost claim must not trap the reviewer in the screen
+                self.notify(f"could not release the claim: {type(exc).__name__}", severity="warning")
+
+    def touch_held_claim(self) -> None:
+        """Tell the queue the reviewer is still working on the held record."""
+        if self.held_claim is not None:
+            try:
+                self.queue.touch_claim(self.held_claim, self.reviewer)
+            except Exception as exc:
+                self.notify(f"claim on the open record lapsed: {type(exc).__name__}", severity="error")
+
+    def on_unmount(self) -> None:
+        """Leave nothing claimed behind."""
+        self.release_claim()

@@ -1,0 +1,95 @@
+"""Small display helpers shared by the screens: inert text, severities, numbers.
+
+Everything that came from a file or a person (record names, channel names,
+metadata, notes, reviewer and host names) goes through :func:`inert_text`,
+which returns a ``rich.text.Text`` built from the string with every control
+character made visible (:func:`tracevet.text.inert`). A ``Text`` object is
+never parsed for markup, so ``[bold]`` stays the six characters it is.
+"""
+
+from __future__ import annotations
+
+import math
+
+from rich.style import Style
+from rich.text import Text
+
+from tracevet.text import inert
+
+CAUTION = (
+    "tracevet is not a medical device and does not diagnose; its flags support but never "
+    "replace review by qualified staff; follow local regulations and institutional protocols."
+)
+
+# Okabe & Ito (2008) colour-blind safe palette; every severity also has a
+# word and a symbol, so nothing depends on colour alone.
+SEVERITY_STYLE = {
+    "fail": Style(color="rgb(213,94,0)", bold=True),
+    "warn": Style(color="rgb(240,228,66)"),
+    "ok": Style(color="rgb(0,158,115)"),
+    "none": Style(dim=True),
+}
+SEVERITY_WORD = {"fail": "FAIL", "warn": "warn", "ok": "ok", "none": "-"}
+SEVERITY_SYMBOL = {"fail": "✖", "warn": "▲", "ok": "✓", "none": "·"}
+SEVERITY_RANK = {"none": 0, "ok": 0, "warn": 1, "fail": 2}
+
+
+def inert_text(value: object, max_len: int | None = None, style: str | Style = "") -> Text:
+    """Return ``value`` as plain, inert rich Text (no markup, control characters made visible)."""
+    if value is None:
+        return Text("-", style=style)
+    return Text(inert(value, max_len), style=style, no_wrap=True, overflow="ellipsis")
+
+
+def severity_key(severity: str | None) -> str:
+    """Normalise a severity (``fail``, ``warn``, or none/empty/ok) to a key of the tables above."""
+    if severity in ("fail", "warn"):
+        return str(severity)
+    if severity in ("ok", "pass"):
+        return "ok"
+    return "none"
+
+
+def severity_text(severity: str | None, count: int | None = None, word: bool = True) -> Text:
+    """Symbol (and word) for a severity, coloured, e.g. ``✖ FAIL 3``."""
+    key = severity_key(severity)
+    parts = [SEVERITY_SYMBOL[key]]
+    if word:
+        parts.append(SEVERITY_WORD[key])
+    if count is not None and key in ("fail", "warn"):
+        parts.append(str(count))
+    return Text(" ".join(parts), style=SEVERITY_STYLE[key], no_wrap=True)
+
+
+def format_duration(seconds: float | None) -> str:
+    """``42.0s``, ``12m05s`` or ``24h00m``: short, fixed-style durations for tables."""
+    if seconds is None or not math.isfinite(float(seconds)):
+        return "-"
+    seconds = float(seconds)
+    if seconds < 60:
+        return f"{seconds:.1f}s"
+    if seconds < 3600:
+        m, s = divmod(int(round(seconds)), 60)
+        return f"{m}m{s:02d}s"
+    h, rem = divmod(int(round(seconds)), 3600)
+    return f"{h}h{rem // 60:02d}m"
+
+
+def format_number(value) -> str:
+    """A measured value or limit, compactly (``-18.2``, ``0.0412``, ``1.2e+03``); text passes through inert."""
+    if value is None:
+        return "-"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, (int,)):
+        return str(value)
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return str(value)
+        magnitude = abs(value)
+        if magnitude == 0:
+            return "0"
+        if 0.01 <= magnitude < 10000:
+            return f"{value:.3g}" if magnitude < 1 else f"{value:.1f}" if magnitude >= 100 else f"{value:.2f}"
+        return f"{value:.2e}"
+    return inert(value, 40)

@@ -1,0 +1,68 @@
+"""The key reference: every key of the screen below and of the app, plus the caution."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Static
+
+from tracevet.app.display import CAUTION
+
+
+def _keys(binding: Binding) -> str:
+    names = [k.strip() for k in binding.key.split(",")]
+    pretty = {
+        "question_mark": "?",
+        "plus": "+",
+        "equals_sign": "=",
+        "minus": "-",
+        "right_square_bracket": "]",
+        "left_square_bracket": "[",
+        "escape": "esc",
+    }
+    return " ".join(pretty.get(n, n) for n in names)
+
+
+def binding_lines(screen_or_app) -> list[tuple[str, str]]:
+    """(keys, description) for every binding declared on the class of ``screen_or_app``."""
+    rows = []
+    for binding in getattr(type(screen_or_app), "BINDINGS", []):
+        if isinstance(binding, Binding):
+            long = getattr(screen_or_app, "KEY_HELP", {}).get(binding.action)
+            rows.append((_keys(binding), long or binding.description or binding.action))
+    return rows
+
+
+class HelpScreen(ModalScreen[None]):
+    """Every key of the screen it was opened from, the app-wide keys and the caution."""
+
+    BINDINGS = [Binding("escape,q,question_mark,f1", "close", "Close")]
+
+    def __init__(self, below) -> None:
+        super().__init__()
+        self.below = below
+
+    def compose(self) -> ComposeResult:
+        """One scrollable text: keys, then the caution."""
+        text = Text()
+        text.append(f"Keys: {getattr(self.below, 'HELP_TITLE', type(self.below).__name__)}\n", style="bold")
+        for keys, what in binding_lines(self.below):
+            text.append(f"  {keys:<16}", style="bold")
+            text.append(f"{what}\n")
+        text.append("Everywhere\n", style="bold")
+        for keys, what in binding_lines(self.app):
+            text.append(f"  {keys:<16}", style="bold")
+            text.append(f"{what}\n")
+        text.append("  up/down pgup/pgdn  move in tables and lists; tab moves between form fields\n")
+        text.append("\nCaution\n", style="bold")
+        text.append(CAUTION + "\n")
+        text.append("\nesc, q or ? closes this help.", style="dim")
+        with VerticalScroll(id="help-box"):
+            yield Static(text, id="help-text")
+
+    def action_close(self) -> None:
+        """Back to the screen below."""
+        self.dismiss(None)

@@ -1,0 +1,504 @@
+"""The record screen: three traces on one time axis, averaged beats, flags, decisions."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical, VerticalScroll
+from textual.screen import Screen
+from textual.widgets import Footer, Static
+
+from tracevet.app import info_text, queue_view
+from tracevet.app.display import SEVERITY_STYLE, SEVERITY_SYMBOL, format_duration, inert_text, severity_text
+from tracevet.app.plots import CANVAS_OFFSET, format_clock, format_value, render_beat_overlay, render_trace_plots
+from tracevet.errors import TracevetError
+
+DEFAULT_SPAN_S = 10.0
+MIN_SPAN_S = 0.5
+PLOT_NAMES = ("original", "cleaned", "removed")
+PLOT_LABELS = {"original": "orig", "cleaned": "clean", "removed": "removed", "beat": "beats", "beat difference": "o - c"}
+
+
+def _claim_error_holder(exc: Exception) -> str:
+    holder = getattr(exc, "holder", None)
+    if holder is not None and hasattr(holder, "describe"):
+        return holder.describe()
+    return queue_view.holder_name(holder) or "another reviewer"
+
+
+class RecordScreen(Screen):
+    """One record: look, compare runs, decide."""
+
+    HELP_TITLE = "record screen"
+    BINDINGS = [
+        Binding("left,h", "pan(-0.5)", "Pan", key_display="←"),
+        Binding("right,l", "pan(0.5)", "Pan right", show=False),
+        Binding("plus,equals_sign", "zoom(0.5)", "Zoom", key_display="+"),
+        Binding("minus", "zoom(2)", "Zoom out", show=False),
+        Binding("home,g", "jump_start", "Start", show=False),
+        Binding("end,G", "jump_end", "End", show=False),
+        Binding("right_square_bracket,n", "next_flag", "Flag", key_display="]"),
+        Binding("left_square_bracket,p", "previous_flag", "Previous flag", show=False),
+        Binding("c", "next_channel", "Channel", show=False),
+        Binding("b", "toggle_beats", "Beat"),
+        Binding("i", "next_panel", "Panel", show=False),
+        Binding("v", "next_run", "Run", show=False),
+        Binding("pageup", "scroll_panel(-1)", "Panel up", show=False),
+        Binding("pagedown", "scroll_panel(1)", "Panel down", show=False),
+        Binding("a", "decide('accept')", "Accept"),
+        Binding("x", "decide('reject')", "Reject"),
+        Binding("s", "decide('rerun')", "Send back", show=False),
+        Binding("r", "rerun", "Re-run"),
+        Binding("escape,q", "back", "Back", key_display="esc"),
+    ]
+    KEY_HELP = {
+        "pan(-0.5)": "pan back by half a window",
+        "pan(0.5)": "pan forward by half a window",
+        "zoom(0.5)": "zoom in (half the window)",
+        "zoom(2)": "zoom out (twice the window)",
+        "jump_start": "jump to the start of the record",
+        "jump_end": "jump to the end of the record",
+        "next_flag": "centre the next flagged beat or region",
+        "previous_flag": "centre the previous flagged beat or region",
+        "next_channel": "next channel",
+        "toggle_beats": "averaged beat: original and cleaned overlaid, and their difference",
+        "next_panel": "lower panel: flags, metrics, run settings, run comparison",
+        "next_run": "show the next run of this record (the one shown is the one you sign)",
+        "scroll_panel(-1)": "scroll the lower panel up",
+        "scroll_panel(1)": "scroll the lower panel down",
+        "decide('accept')": "accept the shown run (note; required when a flag is FAIL)",
+        "decide('reject')": "reject the record (a note is required)",
+        "decide('rerun')": "send back for re-run (note optional)",
+        "rerun": "re-run now with other settings; result shown beside the previous run",
+        "back": "back to the worklist (releases the record)",
+    }
+
+    def __init__(self, record_id: str) -> None:
+        super().__init__()
+        self.record_id = record_id
+        self.read_only = False
+        self.holder_text = ""
+        self.original = None
+        self.runs: list = []
+        self.loaded: dict[str, queue_view.RunData] = {}
+        self.current_run_id: str | None = None
+        self.shown_run_id: str | None = None
+        self.previous_run_id: str | None = None
+        self.channel = 0
+        self.start_s = 0.0
+        self.span_s = DEFAULT_SPAN_S
+        self.view = "traces"
+        self.panel = "flags"
+        self.state = ""
+        self.last_plots = None
+
+    # -- layout -------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        """Title line, window line, the plot stack, the panel, the key footer."""
+        yield Static(id="record-title")
+        yield Static(id="window-line")
+        with Vertical(id="plots"):
+            for name in PLOT_NAMES:
+                yield Static(id=f"plot-{name}", classes="plot")
+            yield Static(id="flag-strip")
+        yield Static(id="panel-tabs")
+        with VerticalScroll(id="panel"):
+            yield Static(id="panel-body")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        """Claim the record (or open it read-only) and load it in the background."""
+        self.query_one("#record-title", Static).update(Text.assemble("loading record ", inert_text(self.record_id, 40)))
+        try:
+            self.app.claim(self.record_id)
+        except TracevetError as exc:
+            if type(exc).__name__ != "ClaimedByOther":
+                raise
+            self.read_only = True
+            self.holder_text = _claim_error_holder(exc)
+            self.notify(f"read-only: {self.holder_text}", timeout=6)
+        self.load_record()
+
+    @work(thread=True, exclusive=True, group="load")
+    def load_record(self) -> None:
+        """Read the original, the runs and the current run (worker thread)."""
+        queue = self.app.queue
+        summary = next((r for r in queue.records() if str(r.id) == str(self.record_id)), None)
+        original = queue.load_original(self.record_id)
+        runs = list(queue.runs(self.record_id))
+        current = getattr(summary, "current_run_id", None) or (runs[-1].run_id if runs else None)
+        loaded = {}
+        if current is not None:
+            info = next(r for r in runs if str(r.run_id) == str(current))
+            run = queue_view.load_run(queue, self.record_id, info)
+            queue_view.pyramids_for(run, original, 0)
+            loaded[run.run_id] = run
+        self.app.call_from_thread(self.record_loaded, summary, original, runs, current, loaded)
+
+    def record_loaded(self, summary, original, runs, current, loaded) -> None:
+        """Show the freshly loaded record."""
+        self.original = original
+        self.runs = runs
+        self.loaded.update(loaded)
+        self.current_run_id = str(current) if current is not None else None
+        self.shown_run_id = self.current_run_id
+        self.state = str(getattr(summary, "state", ""))
+        self.span_s = min(DEFAULT_SPAN_S, original.duration_s)
+        self.start_s = 0.0
+        self.redraw()
+
+    @property
+    def shown_run(self) -> queue_view.RunData | None:
+        """The run whose plots, flags and metrics are on screen."""
+        return self.loaded.get(self.shown_run_id) if self.shown_run_id else None
+
+    # -- drawing ------------------------------------------------------
+    def on_resize(self) -> None:
+        """Redraw the plots for the new size."""
+        self.call_after_refresh(self.redraw)
+
+    def redraw(self) -> None:
+        """Redraw everything from the current state."""
+        if not self.is_mounted:
+            return
+        self.update_title()
+        if self.original is None:
+            return
+        run = self.shown_run
+        if run is None:
+            self.query_one("#window-line", Static).update(Text("this record has no cleaned run yet", style="dim"))
+            return
+        if self.channel not in run.pyramids:
+            self.build_pyramids(run, self.channel)
+            return
+        if self.view == "beats":
+            self.draw_beats(run)
+        else:
+            self.draw_traces(run)
+        self.update_panel()
+
+    @work(thread=True, exclusive=True, group="pyramids")
+    def build_pyramids(self, run, channel: int) -> None:
+        """Build the plot summary of a channel in the background (long records take a moment)."""
+        queue_view.pyramids_for(run, self.original, channel)
+        self.app.call_from_thread(self.redraw)
+
+    def update_title(self) -> None:
+        """Record id, channel, run, state and claim holder."""
+        title = Text(no_wrap=True, overflow="ellipsis")
+        title.append_text(inert_text(self.record_id, 28, style="bold"))
+        rec = self.original
+        if rec is not None:
+            title.append(f"  ch {self.channel + 1}/{rec.n_channels} ")
+            title.append_text(inert_text(rec.channels[self.channel], 12))
+        run = self.shown_run
+        if run is not None:
+            title.append("  ")
+            title.append_text(inert_text(info_text.run_label(run.info, self.runs, self.current_run_id), 40))
+            title.append("  ")
+            title.append_text(severity_text(queue_view.worst_severity(run.assessment), len(queue_view.flag_list(run.assessment))))
+        if rec is not None:
+            title.append("  ")
+            title.append_text(inert_text(rec.kind, 6))
+            title.append(f" {rec.fs:g} Hz")
+        if self.state:
+            title.append("  ")
+            title.append_text(inert_text(self.state, 12, style="dim"))
+        if self.read_only:
+            title = Text.assemble(("READ-ONLY ", "reverse bold"), ("held by ", "bold"), inert_text(self.holder_text, 120), "  ", title)
+            title.no_wrap, title.overflow = True, "ellipsis"
+        self.query_one("#record-title", Static).update(title)
+
+    def plot_geometry(self) -> tuple[int, int]:
+        """Width and total rows available to the plot stack (the flag strip takes one row)."""
+        box = self.query_one("#plots").content_size
+        return max(box.width, 20), max(box.height - 1, 6)
+
+    def draw_traces(self, run) -> None:
+        """The three stacked plots of the current window, labelled."""
+        width, rows = self.plot_geometry()
+        each = max(rows // 3, 2)
+        heights = (each, each, rows - 2 * each)
+        traces = run.pyramids[self.channel]
+        self.span_s = min(max(self.span_s, MIN_SPAN_S), traces.duration_s)
+        self.start_s = min(max(self.start_s, 0.0), max(traces.duration_s - self.span_s, 0.0))
+        regions = queue_view.flagged_regions(run.assessment, self.channel)
+        plots = render_trace_plots(traces, self.start_s, self.span_s, width, heights, self.app.colour, regions)
+        self.last_plots = plots
+        for plot, height in zip(plots.plots, heights):
+            widget = self.query_one(f"#plot-{plot.name}", Static)
+            widget.display = True
+            widget.styles.height = height
+            widget.update(self.plot_text(plot))
+        self.query_one("#flag-strip", Static).update(self.flag_strip_text(plots.flag_strip))
+        units = inert_text(self.original.units or "units?", 8)
+        shared = plots.plots[0]
+        removed = plots.plots[2]
+        line = Text(no_wrap=True, overflow="ellipsis")
+        span = plots.end_s - plots.start_s
+        line.append(f"{format_clock(plots.start_s, span)}-{format_clock(plots.end_s, span)}", style="bold")
+        line.append(f" /{format_duration(traces.duration_s)}")
+        line.append("  orig,clean ", style="dim")
+        line.append(f"{format_value(shared.y_low)}..{format_value(shared.y_high)} ")
+        line.append_text(units)
+        line.append("  removed ", style="dim")
+        line.append(f"{format_value(removed.y_low)}..{format_value(removed.y_high)} ", style="bold")
+        line.append_text(units)
+        line.append(f" ({plots.removed_ratio * 100:.0f}% p-p)", style="bold")
+        self.query_one("#window-line", Static).update(line)
+
+    def draw_beats(self, run) -> None:
+        """Averaged beat of original and cleaned overlaid, and their difference."""
+        width, rows = self.plot_geometry()
+        templates = queue_view.beat_templates(run.assessment, self.channel)
+        for name in PLOT_NAMES:
+            self.query_one(f"#plot-{name}", Static).display = name != "removed"
+        self.query_one("#flag-strip", Static).update("")
+        if templates is None:
+            self.query_one("#plot-original", Static).update(Text("no beats detected in this channel", style="dim"))
+            self.query_one("#plot-cleaned", Static).update("")
+            return
+        top = max(rows * 2 // 3, 3)
+        heights = (top, rows + 1 - top)
+        overlay, difference = render_beat_overlay(*templates, width, heights, self.app.colour)
+        for widget_id, plot, height in (("original", overlay, heights[0]), ("cleaned", difference, heights[1])):
+            widget = self.query_one(f"#plot-{widget_id}", Static)
+            widget.styles.height = height
+            widget.update(self.plot_text(plot))
+        units = inert_text(self.original.units or "units?", 8)
+        line = Text(no_wrap=True, overflow="ellipsis")
+        line.append("averaged beat", style="bold")
+        line.append("  original ", style="dim")
+        line.append("━━", style="rgb(230,159,0)")
+        line.append(" vs cleaned ", style="dim")
+        line.append("━━" if self.app.colour else "••", style="rgb(86,180,233)")
+        line.append(f"  {format_value(overlay.y_low)}..{format_value(overlay.y_high)} ")
+        line.append_text(units)
+        line.append("  o - c ", style="dim")
+        line.append(f"{format_value(difference.y_low)}..{format_value(difference.y_high)} ", style="bold")
+        line.append_text(units)
+        self.query_one("#window-line", Static).update(line)
+
+    def plot_text(self, plot) -> Text:
+        """plotext output as inert Text, with the plot's name written into its label column.
+
+        The ANSI codes come from plotext drawing our own numbers, never from
+        user data, so converting them to styles is safe.
+        """
+        lines = [Text.from_ansi(line, no_wrap=True) for line in plot.text.split("\n")]
+        label = PLOT_LABELS.get(plot.name, plot.name)
+        if len(lines) >= 3:
+            row = len(lines) // 2 if plot.name != "removed" else 1
+            tail = lines[row][CANVAS_OFFSET:]
+            lines[row] = Text(label.rjust(CANVAS_OFFSET - 1)[: CANVAS_OFFSET - 1] + " ", style="bold") + tail
+        return Text("\n", no_wrap=True).join(lines)
+
+    def flag_strip_text(self, strip) -> Text:
+        """One row under the plots marking flagged stretches (symbol and colour per severity)."""
+        text = Text(no_wrap=True, overflow="crop")
+        text.append("flags".rjust(CANVAS_OFFSET - 1) + " ", style="dim")
+        for severity in strip:
+            if severity:
+                text.append(SEVERITY_SYMBOL[severity], style=SEVERITY_STYLE[severity])
+            else:
+                text.append("─", style="dim")
+        return text
+
+    def update_panel(self) -> None:
+        """Tabs and body of the lower panel."""
+        run = self.shown_run
+        previous = self.loaded.get(self.previous_run_id) if self.previous_run_id else None
+        if self.panel == "compare" and previous is None:
+            self.panel = "flags"
+        self.query_one("#panel-tabs", Static).update(info_text.panel_tabs(self.panel, previous is not None))
+        if self.panel == "flags":
+            body = info_text.flags_panel(run.assessment)
+        elif self.panel == "metrics":
+            body = info_text.metrics_panel(run.assessment)
+        elif self.panel == "run":
+            body = info_text.run_panel(run.info, self.runs, self.current_run_id)
+        else:
+            body = info_text.compare_panel(previous, run)
+        self.query_one("#panel-body", Static).update(body)
+
+    # -- navigation ---------------------------------------------------
+    def action_pan(self, fraction: float) -> None:
+        """Move the window by a fraction of its width."""
+        self.start_s += float(fraction) * self.span_s
+        self.redraw()
+
+    def action_zoom(self, factor: float) -> None:
+        """Narrow (factor < 1) or widen the window around its centre."""
+        centre = self.start_s + self.span_s / 2
+        limit = self.original.duration_s if self.original is not None else self.span_s
+        self.span_s = min(max(self.span_s * float(factor), MIN_SPAN_S), limit)
+        self.start_s = centre - self.span_s / 2
+        self.redraw()
+
+    def action_jump_start(self) -> None:
+        """Go to the start of the record."""
+        self.start_s = 0.0
+        self.redraw()
+
+    def action_jump_end(self) -> None:
+        """Go to the end of the record."""
+        if self.original is not None:
+            self.start_s = self.original.duration_s - self.span_s
+        self.redraw()
+
+    def _jump_flag(self, backwards: bool) -> None:
+        run = self.shown_run
+        if run is None:
+            return
+        regions = queue_view.flagged_regions(run.assessment, self.channel)
+        centre = self.start_s + self.span_s / 2
+        target = queue_view.next_region_start(regions, centre, backwards)
+        if target is None:
+            self.notify("no further flagged region in this channel" if regions else "no flagged regions in this channel")
+            return
+        self.view = "traces"
+        self.start_s = target - self.span_s / 2
+        self.redraw()
+
+    def action_next_flag(self) -> None:
+        """Centre the window on the next flagged beat or region."""
+        self._jump_flag(False)
+
+    def action_previous_flag(self) -> None:
+        """Centre the window on the previous flagged beat or region."""
+        self._jump_flag(True)
+
+    def action_next_channel(self) -> None:
+        """Show the next channel."""
+        if self.original is not None:
+            self.channel = (self.channel + 1) % self.original.n_channels
+            self.redraw()
+
+    def action_toggle_beats(self) -> None:
+        """Switch between the three traces and the averaged-beat overlay."""
+        self.view = "beats" if self.view == "traces" else "traces"
+        self.redraw()
+
+    def action_next_panel(self) -> None:
+        """Cycle the lower panel: flags, metrics, run settings, comparison."""
+        panels = [p for p in info_text.PANELS if p != "compare" or self.previous_run_id]
+        self.panel = panels[(panels.index(self.panel) + 1) % len(panels)] if self.panel in panels else panels[0]
+        if self.shown_run is not None:
+            self.update_panel()
+
+    def action_scroll_panel(self, direction: int) -> None:
+        """Scroll the lower panel by a page."""
+        panel = self.query_one("#panel", VerticalScroll)
+        panel.scroll_page_down() if int(direction) > 0 else panel.scroll_page_up()
+
+    def action_next_run(self) -> None:
+        """Show the next run of this record (its plots, flags and settings)."""
+        if len(self.runs) < 2:
+            self.notify("this record has one run; press r to make another")
+            return
+        ids = [str(r.run_id) for r in self.runs]
+        index = ids.index(self.shown_run_id) if self.shown_run_id in ids else -1
+        target = ids[(index + 1) % len(ids)]
+        self.previous_run_id = self.shown_run_id
+        self.show_run(target)
+
+    def show_run(self, run_id: str) -> None:
+        """Display ``run_id`` (loading it first if needed)."""
+        if run_id in self.loaded:
+            self.shown_run_id = run_id
+            self.redraw()
+        else:
+            self.load_other_run(run_id)
+
+    @work(thread=True, exclusive=True, group="load")
+    def load_other_run(self, run_id: str) -> None:
+        """Load another run in the background, then show it."""
+        info = next(r for r in self.runs if str(r.run_id) == run_id)
+        run = queue_view.load_run(self.app.queue, self.record_id, info)
+        queue_view.pyramids_for(run, self.original, self.channel)
+
+        def done() -> None:
+            self.loaded[run.run_id] = run
+            self.shown_run_id = run.run_id
+            self.redraw()
+
+        self.app.call_from_thread(done)
+
+    # -- decisions ----------------------------------------------------
+    def action_decide(self, decision: str) -> None:
+        """Ask for a note, then write ``decision`` for the shown run to the log."""
+        from tracevet.app.note_screen import NoteScreen
+
+        run = self.shown_run
+        if self.read_only:
+            self.notify(f"read-only: {self.holder_text}", severity="warning")
+            return
+        if run is None:
+            self.notify("nothing to decide on yet: the record has no run", severity="warning")
+            return
+        fail = queue_view.has_fail(run.assessment)
+        if decision == "reject":
+            reason = "a reject needs a note saying why"
+        elif decision == "accept" and fail:
+            reason = "this run has a FAIL flag: accepting it needs a note saying why"
+        else:
+            reason = ""
+        prompt = NoteScreen(decision, self.record_id, info_text.run_label(run.info, self.runs, self.current_run_id), reason)
+
+        def save(note: str | None) -> None:
+            if note is None:
+                self.notify("cancelled: nothing written")
+                return
+            self.save_decision(decision, note, run.run_id)
+
+        self.app.push_screen(prompt, save)
+
+    def save_decision(self, decision: str, note: str, run_id: str) -> None:
+        """Write the decision (fsynced by the queue) and only then say saved; move on."""
+        try:
+            entry = self.app.queue.decide(self.record_id, decision, note, self.app.reviewer, run_id=run_id)
+        except TracevetError as exc:
+            self.notify(f"not saved: {exc.one_line()}", severity="error", timeout=8)
+            return
+        seq = getattr(entry, "seq", None)
+        where = f" (log entry {seq})" if seq else ""
+        self.app.notify(f"saved: {decision} {self.record_id} run {run_id}{where}", timeout=5)
+        self.move_on()
+
+    def move_on(self) -> None:
+        """Release this record and open the next one to review (or go back to the worklist)."""
+        self.app.release_claim()
+        next_id = queue_view.next_record(self.app.queue, self.app.reviewer)
+        if next_id is None or next_id == self.record_id:
+            self.app.pop_screen()
+            if next_id is None:
+                self.app.notify("nothing left to review in this queue")
+            return
+        self.app.switch_screen(RecordScreen(next_id))
+
+    def action_rerun(self) -> None:
+        """Open the re-run form pre-filled with the shown run's settings."""
+        from tracevet.app.rerun_screen import RerunScreen
+
+        if self.read_only:
+            self.notify(f"read-only: {self.holder_text}", severity="warning")
+            return
+        run = self.shown_run
+        settings = dict(getattr(run.info, "settings", {}) or {}) if run is not None else {}
+
+        def finished(new_run_id: str | None) -> None:
+            if new_run_id:
+                self.previous_run_id = self.shown_run_id
+                self.panel = "compare" if self.previous_run_id else "flags"
+                self.runs = list(self.app.queue.runs(self.record_id))
+                self.show_run(str(new_run_id))
+
+        self.app.push_screen(RerunScreen(self.record_id, settings), finished)
+
+    def action_back(self) -> None:
+        """Back to the worklist, releasing the claim."""
+        if not self.read_only:
+            self.app.release_claim()
+        self.app.pop_screen()

@@ -1,0 +1,157 @@
+"""The worklist: every record of the queue, sortable and filterable, one key to the next."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Static
+from rich.text import Text
+
+from tracevet.app import queue_view
+from tracevet.app.display import format_duration, inert_text, severity_text
+
+SORTS = ("flagged first", "id", "duration", "state")
+FILTERS = ("all", "to review", "flagged", "decided")
+
+
+class WorklistScreen(Screen):
+    """Table of records: state, duration, channels, worst flag, holder, last decision."""
+
+    HELP_TITLE = "worklist"
+    KEY_HELP = {
+        "open_selected": "open the record under the cursor (claims it; read-only if someone else holds it)",
+        "open_next": "open the next record that needs review (flagged first)",
+        "cycle_sort": "sort: flagged first, id, duration, state",
+        "cycle_filter": "filter: all, to review, flagged, decided",
+        "refresh": "re-read the queue",
+        "quit_app": "quit (releases any claim)",
+    }
+    BINDINGS = [
+        Binding("enter", "open_selected", "Open"),
+        Binding("n", "open_next", "Next to review"),
+        Binding("o", "cycle_sort", "Sort"),
+        Binding("f", "cycle_filter", "Filter"),
+        Binding("u", "refresh", "Update"),
+        Binding("q", "quit_app", "Quit"),
+    ]
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.sort_index = 0
+        self.filter_index = 0
+        self.records: list = []
+
+    def compose(self) -> ComposeResult:
+        """Status line, the table, the key footer."""
+        yield Static(id="worklist-status")
+        yield DataTable(id="worklist-table", cursor_type="row", zebra_stripes=True)
+        yield Footer()
+
+    def on_mount(self) -> None:
+        """Set the columns and fill the table."""
+        table = self.query_one(DataTable)
+        table.add_column("record", key="id", width=18)
+        table.add_column("state", key="state", width=10)
+        table.add_column("length", key="duration", width=7)
+        table.add_column("ch", key="channels", width=2)
+        table.add_column("flags", key="flags", width=9)
+        table.add_column("holder", key="holder", width=9)
+        table.add_column("last", key="last", width=8)
+        self.action_refresh()
+
+    def on_screen_resume(self) -> None:
+        """Coming back from a record: show what changed."""
+        self.action_refresh()
+
+    # -- data ---------------------------------------------------------
+    def visible_records(self) -> list:
+        """The records after the current filter and sort."""
+        chosen = FILTERS[self.filter_index]
+        rows = [r for r in self.records if queue_view.matches_filter(r, chosen)]
+        return queue_view.sort_records(rows, SORTS[self.sort_index])
+
+    def action_refresh(self) -> None:
+        """Re-read the queue and redraw the table, keeping the cursor on the same record."""
+        table = self.query_one(DataTable)
+        selected = self.selected_id()
+        self.records = self.app.queue.records()
+        rows = self.visible_records()
+        table.clear()
+        for record in rows:
+            table.add_row(
+                inert_text(record.id, 18),
+                inert_text(record.state, 10),
+                Text(format_duration(record.duration_s)),
+                Text(str(record.n_channels)),
+                severity_text(record.worst_severity, record.n_flags),
+                inert_text(queue_view.holder_name(record.holder) or "", 9),
+                inert_text(record.last_decision or "", 8),
+                key=record.id,
+            )
+        ids = [r.id for r in rows]
+        if selected in ids:
+            table.move_cursor(row=ids.index(selected))
+        waiting = sum(1 for r in self.records if queue_view.matches_filter(r, "to review"))
+        status = Text.assemble(
+            ("queue ", "dim"),
+            inert_text(queue_view.queue_name(self.app.queue), 30),
+            ("  reviewer ", "dim"),
+            inert_text(self.app.reviewer, 20),
+            (f"  {len(rows)}/{len(self.records)} shown, {waiting} to review", ""),
+            ("  sort: ", "dim"),
+            SORTS[self.sort_index],
+            ("  filter: ", "dim"),
+            FILTERS[self.filter_index],
+        )
+        self.query_one("#worklist-status", Static).update(status)
+        if not self.records:
+            self.notify("this queue holds no records yet: add some with 'tracevet add'", timeout=8)
+
+    def selected_id(self) -> str | None:
+        """Id of the record under the cursor, or None."""
+        table = self.query_one(DataTable)
+        if table.row_count == 0:
+            return None
+        row_key, _ = table.coordinate_to_cell_key(table.cursor_coordinate)
+        return row_key.value
+
+    # -- actions ------------------------------------------------------
+    def action_cycle_sort(self) -> None:
+        """Next sort order."""
+        self.sort_index = (self.sort_index + 1) % len(SORTS)
+        self.action_refresh()
+
+    def action_cycle_filter(self) -> None:
+        """Next filter."""
+        self.filter_index = (self.filter_index + 1) % len(FILTERS)
+        self.action_refresh()
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        """Enter on a row opens it."""
+        self.open_record(event.row_key.value)
+
+    def action_open_selected(self) -> None:
+        """Open the record under the cursor."""
+        record_id = self.selected_id()
+        if record_id is not None:
+            self.open_record(record_id)
+
+    def action_open_next(self) -> None:
+        """Open the next record that needs review (flagged ones first)."""
+        record_id = queue_view.next_record(self.app.queue, self.app.reviewer)
+        if record_id is None:
+            self.notify("nothing left to review in this queue")
+            return
+        self.open_record(record_id)
+
+    def open_record(self, record_id: str) -> None:
+        """Open one record (claiming it, or read-only if someone else holds it)."""
+        from tracevet.app.record_screen import RecordScreen
+
+        self.app.push_screen(RecordScreen(record_id))
+
+    def action_quit_app(self) -> None:
+        """Leave the app."""
+        self.app.release_claim()
+        self.app.exit()

@@ -1,0 +1,125 @@
+"""``tracevet review [QUEUE] [--reviewer NAME]``: open the review app on a queue."""
+
+from __future__ import annotations
+
+import argparse
+import getpass
+import os
+import sys
+from pathlib import Path
+
+from tracevet.errors import InputError
+from tracevet.text import inert
+
+QUEUE_ENV = "TRACEVET_QUEUE"
+REVIEWER_ENV = "TRACEVET_REVIEWER"
+
+
+def register(subparsers) -> None:
+    """Add the ``review`` command."""
+    parser = subparsers.add_parser(
+        "review",
+        help="open the keyboard-only review app on a queue",
+        description=(
+            "Step through a queue in the terminal: look at original, cleaned and removed traces and the "
+            "averaged beat, read the flags, accept, reject or re-run, with a note. Every decision is "
+            "written to the queue's log before the app says it is saved. Press ? in the app for every key."
+        ),
+    )
+    parser.add_argument(
+        "queue",
+        nargs="?",
+        help=f"queue folder (default: ${QUEUE_ENV}, else the repository's queue/ folder)",
+    )
+    parser.add_argument(
+        "--reviewer",
+        help=f"name written into claims and decisions (default: ${REVIEWER_ENV}, else your login name)",
+    )
+    parser.set_defaults(func=run)
+
+
+def default_queue_path() -> Path | None:
+    """The queue opened without an argument: ``$TRACEVET_QUEUE``, else the checkout's ``queue/``.
+
+    ``queue/`` is found relative to the installed package
+    (``src/tracevet/../../queue``), which exists when running from a
+    checkout; None when neither is available.
+    """
+    configured = os.environ.get(QUEUE_ENV)
+    if configured:
+        return Path(configured).expanduser()
+    checkout_queue = Path(__file__).resolve().parents[3] / "queue"
+    if checkout_queue.is_dir():
+        return checkout_queue
+    return None
+
+
+def default_reviewer() -> str:
+    """``$TRACEVET_REVIEWER``, else the login name."""
+    name = os.environ.get(REVIEWER_ENV)
+    if name:
+        return name
+    try:
+        return getpass.getuser()
+    except Exception:  # no login name available (containers)
+        return "reviewer"
+
+
+def fill_default_queue_with_demo(path: Path) -> bool:
+    """Fill the empty default queue from the demo generator, if it is available.
+
+    Returns True when the demo filled the queue. When the demo builder is
+    not part of this installation, prints one line saying the queue is
+    empty and how to add records, and returns False.
+    """
+    try:
+        from tracevet.demo import build_demo_queue
+    except ImportError:
+        print(
+            f"tracevet: the queue {inert(path)} holds no records yet; add recordings with "
+            f"'tracevet add {inert(path)} FILE...' and clean them, then run 'tracevet review' again",
+            file=sys.stderr,
+        )
+        return False
+
+    def progress(fraction: float) -> None:
+        print(f"\rbuilding the demo queue: {fraction * 100:5.1f} %", end="", file=sys.stderr, flush=True)
+
+    build_demo_queue(path, progress)
+    print(file=sys.stderr)
+    return True
+
+
+def _open_queue(path: Path):
+    from tracevet.workqueue import Queue
+
+    return Queue.open(path)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Open the queue and run the app until the reviewer quits."""
+    is_default = args.queue is None
+    path = Path(args.queue).expanduser() if args.queue else default_queue_path()
+    if path is None:
+        raise InputError(
+            "queue",
+            f"no queue given and no default found: pass a queue folder or set ${QUEUE_ENV}",
+        )
+    reviewer = (args.reviewer or default_reviewer()).strip()
+    if not reviewer or any(ord(c) < 32 or ord(c) == 127 for c in reviewer) or len(reviewer) > 64:
+        raise InputError("--reviewer", "the reviewer name must be 1-64 printable characters")
+    queue = _open_queue(path)
+    if is_default and not queue.records():
+        if not fill_default_queue_with_demo(path):
+            return 2
+        queue = _open_queue(path)
+    if not sys.stdout.isatty() or not sys.stdin.isatty():
+        raise InputError("terminal", "tracevet review needs an interactive terminal (stdin and stdout)")
+    from tracevet.app.app import ReviewApp
+
+    app = ReviewApp(queue, reviewer)
+    try:
+        app.run()
+    finally:
+        app.release_claim()
+    return 0
