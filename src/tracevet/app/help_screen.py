@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -47,21 +48,22 @@ class HelpScreen(ModalScreen[None]):
 
     def compose(self) -> ComposeResult:
         """One scrollable text: keys, then the caution."""
-        text = Text()
-        text.append(f"Keys: {getattr(self.below, 'HELP_TITLE', type(self.below).__name__)}\n", style="bold")
-        for keys, what in binding_lines(self.below):
-            text.append(f"  {keys:<16}", style="bold")
-            text.append(f"{what}\n")
-        text.append("Everywhere\n", style="bold")
-        for keys, what in binding_lines(self.app):
-            text.append(f"  {keys:<16}", style="bold")
-            text.append(f"{what}\n")
-        text.append("  up/down pgup/pgdn  move in tables and lists; tab moves between form fields\n")
-        text.append("\nCaution\n", style="bold")
-        text.append(CAUTION + "\n")
-        text.append("\nesc, q or ? closes this help.", style="dim")
+        title = getattr(self.below, "HELP_TITLE", type(self.below).__name__)
+        keys = Table.grid(padding=(0, 2))
+        keys.add_column(style="bold", no_wrap=True)
+        keys.add_column()
+        keys.add_row(Text(f"Keys: {title}", style="bold underline"), "")
+        for key, what in binding_lines(self.below):
+            keys.add_row(key, what)
+        keys.add_row(Text("Everywhere", style="bold underline"), "")
+        for key, what in binding_lines(self.app):
+            keys.add_row(key, what)
+        keys.add_row("up down pgup pgdn", "move in tables, lists and this help")
+        keys.add_row("tab shift+tab", "move between form fields")
+        caution = Text.assemble(("Caution: ", "bold"), CAUTION, ("\n\nesc, q or ? closes this help.", "dim"))
         with VerticalScroll(id="help-box"):
-            yield Static(text, id="help-text")
+            yield Static(keys, id="help-keys")
+            yield Static(caution, id="help-caution")
 
     def action_close(self) -> None:
         """Back to the screen below."""

@@ -125,16 +125,6 @@ def compare_panel(previous, shown) -> Text:
     header = Text.assemble(("".ljust(24), ""), inert_text(previous.run_id, width), " -> ", inert_text(shown.run_id, width))
     text.append_text(header)
     text.append("\n")
-    before = getattr(previous.info, "settings", {}) or {}
-    after = getattr(shown.info, "settings", {}) or {}
-    for name in sorted(set(before) | set(after)):
-        if before.get(name) != after.get(name):
-            text.append_text(inert_text(name, 23, style="dim").copy())
-            text.append(" " * max(1, 24 - len(str(name)[:23])))
-            text.append_text(inert_text(before.get(name), width))
-            text.append(" -> ")
-            text.append_text(inert_text(after.get(name), width))
-            text.append("\n")
     text.append("worst".ljust(24), style="dim")
     text.append_text(severity_text(queue_view.worst_severity(previous.assessment)))
     text.append(" -> ")
@@ -158,6 +148,7 @@ def compare_panel(previous, shown) -> Text:
                 text.append(" -> ")
         text.append("\n")
     metrics_before = dict(queue_view.metric_items(previous.assessment))
+    text.append("metrics\n", style="bold")
     metrics_after = dict(queue_view.metric_items(shown.assessment))
     for name in sorted(set(metrics_before) | set(metrics_after), key=str):
         text.append_text(inert_text(name, 23, style="dim"))
@@ -168,5 +159,16 @@ def compare_panel(previous, shown) -> Text:
         text.append(" -> ")
         text.append(format_number(metrics_after.get(name)))
         text.append("\n")
+    text.append("settings changed\n", style="bold")
+    before = getattr(previous.info, "settings", {}) or {}
+    after = getattr(shown.info, "settings", {}) or {}
+    for name in sorted(set(before) | set(after)):
+        if before.get(name) != after.get(name):
+            text.append_text(inert_text(name, 23, style="dim"))
+            text.append(" " * max(1, 24 - len(str(name)[:23])))
+            text.append_text(inert_text(before.get(name), width))
+            text.append(" -> ")
+            text.append_text(inert_text(after.get(name), width))
+            text.append("\n")
     text.rstrip()
     return text

@@ -93,6 +93,7 @@ class RecordScreen(Screen):
         self.panel = "flags"
         self.state = ""
         self.last_plots = None
+        self._panel_key = None
 
     # -- layout -------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -234,19 +235,15 @@ class RecordScreen(Screen):
             widget.update(self.plot_text(plot))
         self.query_one("#flag-strip", Static).update(self.flag_strip_text(plots.flag_strip))
         units = inert_text(self.original.units or "units?", 8)
-        shared = plots.plots[0]
         removed = plots.plots[2]
         line = Text(no_wrap=True, overflow="ellipsis")
         span = plots.end_s - plots.start_s
         line.append(f"{format_clock(plots.start_s, span)}-{format_clock(plots.end_s, span)}", style="bold")
-        line.append(f" /{format_duration(traces.duration_s)}")
-        line.append("  orig,clean ", style="dim")
-        line.append(f"{format_value(shared.y_low)}..{format_value(shared.y_high)} ")
-        line.append_text(units)
+        line.append(f" of {format_duration(traces.duration_s)}")
         line.append("  removed ", style="dim")
         line.append(f"{format_value(removed.y_low)}..{format_value(removed.y_high)} ", style="bold")
         line.append_text(units)
-        line.append(f" ({plots.removed_ratio * 100:.0f}% p-p)", style="bold")
+        line.append(f" = {plots.removed_ratio * 100:.0f}% of original p-p", style="bold")
         self.query_one("#window-line", Static).update(line)
 
     def draw_beats(self, run) -> None:
@@ -322,6 +319,10 @@ class RecordScreen(Screen):
         else:
             body = info_text.compare_panel(previous, run)
         self.query_one("#panel-body", Static).update(body)
+        shown_key = (self.panel, self.shown_run_id, self.previous_run_id)
+        if shown_key != self._panel_key:
+            self._panel_key = shown_key
+            self.query_one("#panel", VerticalScroll).scroll_home(animate=False)
 
     # -- navigation ---------------------------------------------------
     def action_pan(self, fraction: float) -> None:
