@@ -7,7 +7,7 @@ from typing import Callable, Iterator
 
 import numpy as np
 
-DEFAULT_BLOCK_SAMPLES = 1 << 20
+DEFAULT_BLOCK_SAMPLES = 1 << 21
 
 
 @dataclass(frozen=True)
@@ -52,10 +52,17 @@ def process_inplace(
 ) -> None:
     """Replace ``buf`` block by block with ``func(segment, block)``'s core.
 
-    ``func`` gets a copy of the segment and returns an array of the same
+    ``func`` gets a copy of the segment (the buffer itself when there is
+    one block; it must not modify it in place) and returns an array of the same
     length. A block's result is written only after the next segment has been
     read, so every block sees the unprocessed input in its overlap.
     """
+    if len(blocks) == 1:  # whole record: no copy needed
+        result = func(buf, blocks[0])
+        buf[:] = result
+        if after_block is not None:
+            after_block(0)
+        return
     pending: tuple[int, int, np.ndarray] | None = None
     for i, block in enumerate(blocks):
         segment = buf[block.start : block.stop].copy()

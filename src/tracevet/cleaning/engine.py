@@ -28,7 +28,7 @@ import numpy as np
 import pywt
 
 from tracevet.cleaning import filters, shrinkage, thresholds
-from tracevet.cleaning.blocks import DEFAULT_BLOCK_SAMPLES, plan_blocks, process_inplace
+from tracevet.cleaning.blocks import DEFAULT_BLOCK_SAMPLES, Block, plan_blocks, process_inplace
 from tracevet.cleaning.levels import resolve_level
 from tracevet.cleaning.noise import level_sigmas
 from tracevet.cleaning.settings import CleaningSettings
@@ -38,6 +38,8 @@ Progress = Callable[[float], None] | None
 
 # Statistics for the thresholds use at most this many coefficients per level.
 STATS_MAX_COEFFS = 1 << 21
+# SURE and hybrid sort at most this many of them (evenly spaced).
+SURE_MAX_COEFFS = 1 << 17
 
 
 def _work_dtype(x: np.ndarray) -> np.dtype:
@@ -73,7 +75,80 @@ def _apply_filters(buf: np.ndarray, fs: float, settings: CleaningSettings, block
 
 
 def _wavelet_overlap(wavelet: str, level: int) -> int:
-    return max(shrinkage.swt_reach(wavelet, level), 2 * pywt.Wavelet(wavelet).dec_len * (1 << level))
+    return max(shrinkage.swt_reach(wavelet, level), 2 * shrinkage.as_wavelet(wavelet).dec_len * (1 << level))
+
+
+def _levels_needed(settings: CleaningSettings, level: int) -> int:
+    """How many detail levels the threshold statistics need (finest first)."""
+    if settings.rule in ("universal", "minimax") and settings.noise_estimate == "finest":
+        return 1
+    return level
+
+
+class _LevelStatistics:
+    """Evenly spaced coefficients of each detail level of the whole channel, and its peak."""
+
+    def __init__(self, n: int, levels: int):
+        self.n = n
+        self.totals = [max(1, n >> j) for j in range(1, levels + 1)]
+        self.strides = [max(1, math.ceil(t / STATS_MAX_COEFFS)) for t in self.totals]
+        self.parts: list[list[np.ndarray]] = [[] for _ in range(levels)]
+        self.peaks = [0.0] * levels
+
+    def add(self, details: list[np.ndarray], block) -> None:
+        """Take the core coefficients of one block (``details`` finest first)."""
+        core_len = block.core_stop - block.core_start
+        for j in range(1, len(self.parts) + 1):
+            d = details[j - 1]
+            lo = block.core_offset >> j
+            hi = min(d.shape[0], (block.core_offset + core_len) >> j)
+            if hi <= lo:
+                continue
+            core = d[lo:hi]
+            self.peaks[j - 1] = max(self.peaks[j - 1], float(np.max(np.abs(core))))
+            stride = self.strides[j - 1]
+            first = (-(lo + (block.start >> j))) % stride
+            self.parts[j - 1].append(np.abs(core[first::stride]))
+
+    def thresholds(self, settings: CleaningSettings, level: int) -> list[float]:
+        """Thresholds in signal units for detail levels 1..level (finest first)."""
+        mags = [np.concatenate(p) if p else np.zeros(1, dtype=np.float32) for p in self.parts]
+        # The magnitudes may be reordered only when no later rule needs them.
+        reorder = settings.rule in ("universal", "minimax")
+        sigmas = level_sigmas(mags, settings.noise_estimate, magnitudes=reorder)
+        if len(sigmas) < level:  # finest estimate for every level
+            sigmas = sigmas + [sigmas[0]] * (level - len(sigmas))
+        n = self.n
+        lams = []
+        for j in range(1, level + 1):
+            sigma = sigmas[j - 1]
+            if sigma <= 0:
+                lams.append(0.0)
+            elif settings.rule == "universal":
+                lams.append(thresholds.universal_threshold(n, sigma))
+            elif settings.rule == "minimax":
+                lams.append(sigma * thresholds.minimax_threshold(n))
+            else:
+                d = mags[j - 1]
+                if d.size > SURE_MAX_COEFFS:  # evenly spaced subsample for the sort
+                    d = d[:: math.ceil(d.size / SURE_MAX_COEFFS)]
+                d_level = self.totals[j - 1]
+                if settings.rule == "sure":
+                    upper = math.sqrt(2.0 * math.log(max(d_level, 2)))
+                    lams.append(sigma * thresholds.sure_threshold(d / sigma, upper=upper))
+                elif settings.rule == "hybrid":
+                    lams.append(sigma * thresholds.hybrid_sure_threshold(d / sigma, n_level=d_level))
+                elif settings.rule == "bayes":
+                    lams.append(thresholds.bayes_threshold(mags[j - 1], sigma, max_abs=self.peaks[j - 1]))
+                else:  # guarded by CleaningSettings validation
+                    raise ValueError(f"unknown rule {settings.rule!r}")
+        return lams
+
+
+def _stats_details(segment: np.ndarray, settings: CleaningSettings, levels: int, wavelet) -> list[np.ndarray]:
+    if levels == 1:
+        return [pywt.dwt(segment, wavelet, mode=settings.extension)[1]]
+    return shrinkage.dwt_details(segment, wavelet, settings.extension, levels)
 
 
 def level_thresholds(
@@ -81,56 +156,35 @@ def level_thresholds(
 ) -> list[float]:
     """Thresholds in signal units for detail levels 1..level (finest first).
 
-    Statistics come from the decimated (DWT) detail coefficients of the whole
-    channel, computed block by block on the same dyadic grid; for the SWT
-    these are the decimation-phase-0 subset of its coefficients at each
+    Statistics come from the decimated (DWT, boundary mode ``extension``)
+    detail coefficients of the whole channel, computed block by block on the
+    same dyadic grid, so that they do not depend on the block size; for the
+    SWT these are the decimation-phase-0 subset of its coefficients at each
     level, with the same distribution. The sample size ``n`` of the
     universal and minimax rules is the number of samples of the channel; the
     level size ``d`` of SURE and hybrid is the number of coefficients of the
-    level.
+    level (Donoho & Johnstone 1994, 1995).
     """
     n = buf.shape[0]
-    wavelet, mode = settings.wavelet, settings.extension
-    align = 1 << level
-    blocks = plan_blocks(n, block_samples, _wavelet_overlap(wavelet, level), align)
-    totals = [max(1, n >> j) for j in range(1, level + 1)]
-    strides = [max(1, math.ceil(t / STATS_MAX_COEFFS)) for t in totals]
-    parts: list[list[np.ndarray]] = [[] for _ in range(level)]
-    peaks = [0.0] * level
-    for block in blocks:
-        details = shrinkage.dwt_details(buf[block.start : block.stop], wavelet, mode, level)
-        for j in range(1, level + 1):
-            d = details[j - 1]
-            lo = block.core_offset >> j
-            hi = min(d.shape[0], (block.core_offset + block.core_stop - block.core_start) >> j)
-            if hi <= lo:
-                continue
-            core = d[lo:hi]
-            peaks[j - 1] = max(peaks[j - 1], float(np.max(np.abs(core))))
-            stride = strides[j - 1]
-            first = (-(lo + (block.start >> j))) % stride
-            parts[j - 1].append(np.array(core[first::stride], dtype=np.float64))
-    coeffs = [np.concatenate(p) if p else np.zeros(1) for p in parts]
-    sigmas = level_sigmas(coeffs, settings.noise_estimate)
-    lams = []
-    for j, (d, sigma) in enumerate(zip(coeffs, sigmas), start=1):
-        d_level = totals[j - 1]
-        if sigma <= 0:
-            lams.append(0.0)
-        elif settings.rule == "universal":
-            lams.append(thresholds.universal_threshold(n, sigma))
-        elif settings.rule == "minimax":
-            lams.append(sigma * thresholds.minimax_threshold(n))
-        elif settings.rule == "sure":
-            upper = math.sqrt(2.0 * math.log(max(d_level, 2)))
-            lams.append(sigma * thresholds.sure_threshold(d / sigma, upper=upper))
-        elif settings.rule == "hybrid":
-            lams.append(sigma * thresholds.hybrid_sure_threshold(d / sigma, n_level=d_level))
-        elif settings.rule == "bayes":
-            lams.append(thresholds.bayes_threshold(d, sigma, max_abs=peaks[j - 1]))
-        else:  # guarded by CleaningSettings validation
-            raise ValueError(f"unknown rule {settings.rule!r}")
-    return lams
+    wavelet = shrinkage.as_wavelet(settings.wavelet)
+    levels = _levels_needed(settings, level)
+    stats = _LevelStatistics(n, levels)
+    for block in plan_blocks(n, block_samples, _wavelet_overlap(wavelet, level), 1 << level):
+        stats.add(_stats_details(buf[block.start : block.stop], settings, levels, wavelet), block)
+    return stats.thresholds(settings, level)
+
+
+def _dwt_single_block(buf: np.ndarray, settings: CleaningSettings, level: int) -> None:
+    """Whole channel in one go: one ``wavedec`` serves statistics and shrinkage."""
+    n = buf.shape[0]
+    coeffs = pywt.wavedec(buf, settings.wavelet, mode=settings.extension, level=level)
+    levels = _levels_needed(settings, level)
+    stats = _LevelStatistics(n, levels)
+    stats.add(coeffs[:0:-1][:levels], Block(0, n, 0, n))
+    lams = stats.thresholds(settings, level)
+    for j, lam in enumerate(lams, start=1):
+        shrinkage.threshold_inplace(coeffs[-j], lam, settings.threshold_mode)
+    buf[:] = pywt.waverec(coeffs, settings.wavelet, mode=settings.extension)[:n]
 
 
 def clean_channel(
@@ -181,14 +235,19 @@ def clean_channel(
             current[0] += 1
 
     _apply_filters(buf, fs, settings, block_samples, filter_report)
+    wavelet = shrinkage.as_wavelet(settings.wavelet)
+    blocks = plan_blocks(n, block_samples, _wavelet_overlap(wavelet, level), 1 << level)
+    if settings.transform == "dwt" and len(blocks) == 1:
+        _dwt_single_block(buf, settings, level)
+        stages.report(n_filters + 1, 1.0)
+        return buf
     lams = level_thresholds(buf, settings, level, block_samples)
     stages.report(n_filters, 1.0)
     shrink = shrinkage.swt_shrink if settings.transform == "swt" else shrinkage.dwt_shrink
-    blocks = plan_blocks(n, block_samples, _wavelet_overlap(settings.wavelet, level), 1 << level)
     process_inplace(
         buf,
         blocks,
-        lambda seg, _b: shrink(seg, settings.wavelet, settings.extension, level, lams, settings.threshold_mode),
+        lambda seg, _b: shrink(seg, wavelet, settings.extension, level, lams, settings.threshold_mode),
         after_block=lambda i: stages.report(n_filters + 1, (i + 1) / len(blocks)),
     )
     return buf

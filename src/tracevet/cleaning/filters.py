@@ -18,16 +18,19 @@ def baseline_sos(fs: float, cutoff_hz: float, order: int = BASELINE_ORDER) -> np
 
     Filtering forward and backward (:func:`zero_phase`) squares the magnitude
     response, so each pass is designed with its corner at
-    ``cutoff / (sqrt(2) + 1)^(1 / (2 order))``: the forward-backward response
-    is then -3 dB at ``cutoff`` (Butterworth magnitude
-    ``|H|^2 = r^(2N) / (1 + r^(2N))``, r = f / f_c). Zero phase means no
+    ``r = (sqrt(2) + 1)^(1 / (2 order))`` below ``cutoff`` (in the
+    bilinear-warped frequency): the forward-backward response is then -3 dB at
+    ``cutoff`` (Butterworth high-pass ``|H|^2 = r^(2N) / (1 + r^(2N))`` with
+    ``r = tan(pi f / fs) / tan(pi f_c / fs)``, so ``|H|^4 = 1/2``). Zero phase means no
     phase distortion of the ST segment; the diagnostic-ECG recommendation
     (AHA 2007, Kligfield et al., JACC 49(10):1109-1127) is a 0.05 Hz
     low-frequency cutoff, or up to 0.67 Hz only with linear-phase filtering.
     """
     if not 0 < cutoff_hz < fs / 2:
         raise SettingsError("baseline_cutoff_hz", f"{cutoff_hz:g} Hz is not below half the sampling rate ({fs / 2:g} Hz)")
-    corner = cutoff_hz / (math.sqrt(2.0) + 1.0) ** (1.0 / (2 * order))
+    # Digital Butterworth: r = tan(pi f / fs) / tan(pi f_c / fs) (bilinear transform).
+    ratio = (math.sqrt(2.0) + 1.0) ** (1.0 / (2 * order))
+    corner = fs / math.pi * math.atan(math.tan(math.pi * cutoff_hz / fs) / ratio)
     return signal.butter(order, corner, btype="highpass", output="sos", fs=fs)
 
 

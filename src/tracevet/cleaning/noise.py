@@ -29,13 +29,27 @@ def mad_sigma(coeffs: np.ndarray) -> float:
     float
         The estimate; 0.0 for an empty array.
     """
-    d = np.abs(np.asarray(coeffs, dtype=np.float64).ravel())
-    if d.size == 0:
+    return median_inplace(np.abs(np.asarray(coeffs).ravel())) / MAD_TO_SIGMA
+
+
+def median_inplace(values: np.ndarray) -> float:
+    """Median of a 1-D array, reordering the array (one partition, no copy).
+
+    For an even count it is the mean of the two middle values, as
+    ``numpy.median``; the lower one is the maximum of the lower part.
+    """
+    n = values.size
+    if n == 0:
         return 0.0
-    return float(np.median(d)) / MAD_TO_SIGMA
+    k = n // 2
+    values.partition(k)
+    upper = float(values[k])
+    if n % 2:
+        return upper
+    return 0.5 * (float(values[:k].max()) + upper)
 
 
-def level_sigmas(details: list[np.ndarray], estimate: str) -> list[float]:
+def level_sigmas(details: list[np.ndarray], estimate: str, magnitudes: bool = False) -> list[float]:
     """Noise standard deviation for each detail level (finest first).
 
     Parameters
@@ -47,10 +61,14 @@ def level_sigmas(details: list[np.ndarray], estimate: str) -> list[float]:
         level (white noise; the orthonormal DWT keeps white-noise variance
         equal across levels). ``per_level``: a MAD estimate per level
         (coloured noise, Johnstone & Silverman 1997).
+    magnitudes : bool
+        True when ``details`` already hold ``|d|`` in arrays the caller no
+        longer needs in order: they are then partitioned in place.
     """
+    one = (lambda d: median_inplace(d.reshape(-1)) / MAD_TO_SIGMA) if magnitudes else mad_sigma
     if estimate == "finest":
-        sigma = mad_sigma(details[0])
+        sigma = one(details[0])
         return [sigma] * len(details)
     if estimate == "per_level":
-        return [mad_sigma(d) for d in details]
+        return [one(d) for d in details]
     raise ValueError(f"unknown noise estimate {estimate!r} (choices: finest, per_level)")

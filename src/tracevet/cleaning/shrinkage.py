@@ -10,29 +10,35 @@ import pywt
 MODES = ("garrote", "hard", "soft")
 
 
+def as_wavelet(wavelet: str | pywt.Wavelet) -> pywt.Wavelet:
+    """A ``pywt.Wavelet`` for a name (built once per channel, not per call)."""
+    return wavelet if isinstance(wavelet, pywt.Wavelet) else pywt.Wavelet(wavelet)
+
+
 def _soft(x: np.ndarray, lam: float) -> None:
-    # eta_soft(x) = sign(x) max(|x| - lam, 0)  (Donoho & Johnstone 1994)
-    mag = np.abs(x)
-    np.subtract(mag, lam, out=mag)
-    np.maximum(mag, 0, out=mag)
-    np.copysign(mag, x, out=x)
+    # eta_soft(x) = sign(x) max(|x| - lam, 0)  (Donoho & Johnstone 1994).
+    # Only the few coefficients above lam are touched after zeroing the rest.
+    keep = np.flatnonzero(np.abs(x) > lam)
+    values = x[keep]
+    x.fill(0)
+    x[keep] = values - np.copysign(np.asarray(lam, dtype=x.dtype), values)
 
 
 def _hard(x: np.ndarray, lam: float) -> None:
     # eta_hard(x) = x 1{|x| >= lam}; |x| == lam is kept, as PyWavelets does.
-    x[np.abs(x) < lam] = 0
+    keep = np.flatnonzero(np.abs(x) >= lam)
+    values = x[keep]
+    x.fill(0)
+    x[keep] = values
 
 
 def _garrote(x: np.ndarray, lam: float) -> None:
-    # Non-negative garrote x max(1 - lam^2 / x^2, 0)
-    # (Gao 1998, J Comput Graph Stat 7(4):469-488; Breiman 1995).
-    sq = np.square(x)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        np.divide(lam * lam, sq, out=sq, where=sq > 0)
-    sq[x == 0] = 1.0
-    np.subtract(1, sq, out=sq)
-    np.maximum(sq, 0, out=sq)
-    np.multiply(x, sq, out=x)
+    # Non-negative garrote x max(1 - lam^2 / x^2, 0) = x - lam^2 / x for |x| > lam
+    # (Gao 1998, J Comput Graph Stat 7(4):469-488; Breiman 1995, Technometrics 37:373-384).
+    keep = np.flatnonzero(np.abs(x) > lam)
+    values = x[keep]
+    x.fill(0)
+    x[keep] = values - np.asarray(lam * lam, dtype=x.dtype) / values
 
 
 _THRESHOLD_FUNCTIONS = {"soft": _soft, "hard": _hard, "garrote": _garrote}
@@ -60,7 +66,12 @@ def threshold_inplace(x: np.ndarray, lam: float, mode: str) -> np.ndarray:
     if mode not in _THRESHOLD_FUNCTIONS:
         raise ValueError(f"unknown threshold mode {mode!r} (choices: {', '.join(MODES)})")
     if lam > 0:
-        _THRESHOLD_FUNCTIONS[mode](x, lam)
+        if x.flags.c_contiguous:
+            _THRESHOLD_FUNCTIONS[mode](x.reshape(-1), lam)
+        else:
+            flat = x.ravel()  # a copy
+            _THRESHOLD_FUNCTIONS[mode](flat, lam)
+            x[...] = flat.reshape(x.shape)
     return x
 
 
@@ -84,39 +95,68 @@ def dwt_shrink(segment: np.ndarray, wavelet: str, mode: str, level: int, lams: S
     return out[: segment.shape[0]]
 
 
-def iswt_fast(coeffs: Sequence[np.ndarray], wavelet: str) -> np.ndarray:
-    """Inverse stationary wavelet transform of ``pywt.swt(..., trim_approx=True)`` output.
+def swt_forward(x: np.ndarray, wavelet: str, level: int) -> tuple[np.ndarray, list[np.ndarray]]:
+    """Stationary wavelet transform with periodic boundaries, in polyphase layout.
 
-    Same result as ``pywt.iswt`` (Nason & Silverman 1995, The stationary
+    The SWT at level ``j`` is the DWT of both decimation phases of every
+    sub-series of level ``j - 1`` (Nason & Silverman 1995, The stationary
     wavelet transform and some statistical applications, Lecture Notes in
-    Statistics 103:281-299): at level ``j`` the signal is the average of the
-    inverse DWTs of its two decimation phases, the odd one shifted by one.
-    ``pywt.iswt`` loops in Python over the ``2^(j-1)`` interleaved sub-series
-    and gathers them by fancy indexing; here they are the columns of a
-    reshaped view and one ``pywt.idwt(..., axis=0)`` call handles them all.
-    The length must be a multiple of ``2^level``.
+    Statistics 103:281-299). Here the ``2^j`` sub-series of level ``j`` are the
+    rows of a 2-D array and one ``pywt.dwt(..., mode='periodization',
+    axis=-1)`` call per phase filters all of them, contiguously. The
+    coefficients are those of ``pywt.swt`` (same values, rows instead of
+    interleaved); thresholding does not care about the order.
+
+    Parameters
+    ----------
+    x : 1-D array, length a multiple of ``2^level``
+    wavelet : str
+    level : int
+
+    Returns
+    -------
+    approx : 2-D array ``(2^level, n / 2^level)``
+    details : list of 2-D arrays, finest level first (level ``j``: ``(2^j, n / 2^j)``)
     """
-    approx = np.array(coeffs[0], copy=True)
-    details = coeffs[1:]
-    n = approx.shape[0]
-    levels = len(details)
-    for j in range(levels, 0, -1):
-        step = 1 << (j - 1)
-        detail = details[levels - j]
-        a3 = approx.reshape(n // (2 * step), 2, step)
-        d3 = detail.reshape(n // (2 * step), 2, step)
-        even = pywt.idwt(a3[:, 0, :], d3[:, 0, :], wavelet, mode="periodization", axis=0)
-        odd = pywt.idwt(a3[:, 1, :], d3[:, 1, :], wavelet, mode="periodization", axis=0)
-        odd = np.roll(odd, 1, axis=0)
-        np.add(even, odd, out=even)
+    rows = x.reshape(1, -1)
+    details = []
+    for _ in range(level):
+        count, length = rows.shape
+        # both decimation phases of every row: the rows, then the rows shifted by one
+        stacked = np.empty((2 * count, length), dtype=rows.dtype)
+        stacked[:count] = rows
+        stacked[count:, :-1] = rows[:, 1:]
+        stacked[count:, -1] = rows[:, 0]
+        rows, detail = pywt.dwt(stacked, wavelet, mode="periodization", axis=-1)
+        details.append(detail)
+        del stacked
+    return rows, details
+
+
+def swt_inverse(approx: np.ndarray, details: Sequence[np.ndarray], wavelet: str) -> np.ndarray:
+    """Inverse of :func:`swt_forward` (the ``pywt.iswt`` average of both phases).
+
+    At each level the signal is the mean of the inverse DWTs of its two
+    decimation phases, the odd one shifted back by one sample, as in
+    ``pywt.iswt``; the rows hold every sub-series, so one ``pywt.idwt`` call
+    per phase does a whole level.
+    """
+    rows = approx
+    for detail in reversed(details):
+        half = rows.shape[0] // 2
+        even = pywt.idwt(rows[:half], detail[:half], wavelet, mode="periodization", axis=-1)
+        odd = pywt.idwt(rows[half:], detail[half:], wavelet, mode="periodization", axis=-1)
+        even[:, 1:] += odd[:, :-1]
+        even[:, 0] += odd[:, -1]
         even *= 0.5
-        approx = even.reshape(n)
-    return approx
+        rows = even
+        del odd
+    return rows.reshape(-1)
 
 
 def swt_reach(wavelet: str, level: int) -> int:
     """Samples over which an SWT of ``level`` reaches: ``2 (L - 1) 2^level``."""
-    return 2 * (pywt.Wavelet(wavelet).dec_len - 1) * (1 << level)
+    return 2 * (as_wavelet(wavelet).dec_len - 1) * (1 << level)
 
 
 def swt_shrink(segment: np.ndarray, wavelet: str, mode: str, level: int, lams: Sequence[float], threshold_mode: str) -> np.ndarray:
@@ -124,8 +164,8 @@ def swt_shrink(segment: np.ndarray, wavelet: str, mode: str, level: int, lams: S
 
     The segment is extended at both ends with boundary mode ``mode`` by the
     transform's reach and up to a multiple of ``2^level`` (``pywt.swt``
-    itself wraps around), transformed with ``pywt.swt``, each detail level
-    thresholded, inverted with :func:`iswt_fast` and cropped
+    itself wraps around), transformed with :func:`swt_forward`, each detail level
+    thresholded, inverted with :func:`swt_inverse` and cropped
     (translation-invariant denoising, Coifman & Donoho 1995, Lecture Notes in
     Statistics 103:125-150).
     """
@@ -136,9 +176,9 @@ def swt_shrink(segment: np.ndarray, wavelet: str, mode: str, level: int, lams: S
     right = left + (-total) % block
     pad_mode = "periodic" if mode == "periodization" else mode
     extended = pywt.pad(segment, (left, right), pad_mode)
-    coeffs = pywt.swt(extended, wavelet, level=level, trim_approx=True, norm=False)
+    approx, details = swt_forward(extended, wavelet, level)
     del extended
-    for j, lam in enumerate(lams, start=1):
-        threshold_inplace(coeffs[-j], lam, threshold_mode)
-    out = iswt_fast(coeffs, wavelet)
+    for detail, lam in zip(details, lams):
+        threshold_inplace(detail, lam, threshold_mode)
+    out = swt_inverse(approx, details, wavelet)
     return out[left : left + n]

@@ -105,14 +105,16 @@ def sure_threshold(x: np.ndarray, upper: float | None = None) -> float:
     upper : float, optional
         Largest threshold considered; defaults to ``sqrt(2 ln d)``.
     """
-    a = np.sort(np.square(np.asarray(x, dtype=np.float64).ravel()))
+    x = np.asarray(x)
+    a = np.square(x.ravel() if x.dtype == np.float32 else x.astype(np.float64).ravel())
+    a.sort()
     d = a.size
     if d == 0:
         return 0.0
     if upper is None:
         upper = math.sqrt(2.0 * math.log(d)) if d > 1 else 0.0
     k = np.arange(1, d + 1, dtype=np.float64)
-    risks = d - 2.0 * k + np.cumsum(a) + (d - k) * a
+    risks = d - 2.0 * k + np.cumsum(a, dtype=np.float64) + (d - k) * a
     allowed = a <= upper * upper
     candidates = np.concatenate(([float(d)], np.where(allowed, risks, np.inf)))  # t = 0 gives d
     best = int(np.argmin(candidates))
