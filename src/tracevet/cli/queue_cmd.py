@@ -1,0 +1,392 @@
+"""Queue commands: init, add, clean, status, decide, claim, release, log, export.
+
+Thin wrappers over :mod:`tracevet.workqueue`. Exit codes: 0 success; 1 for
+``log --verify`` problems, records that could not be cleaned, and a
+decision refused because another reviewer holds the record; 2 bad input
+(one line on stderr).
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from collections import Counter
+
+from tracevet.text import inert
+
+_STATE_WORDS = {
+    "to-clean": "waiting to be cleaned",
+    "to-review": "ready for review",
+    "in-review": "being reviewed",
+    "accepted": "accepted",
+    "rejected": "rejected",
+    "sent-back": "sent back for a re-run",
+}
+
+
+def register(subparsers) -> None:
+    """Add the queue commands to the ``tracevet`` parser."""
+    p = subparsers.add_parser("init", help="make a new work queue folder", description="Make a new, empty work queue folder.")
+    p.add_argument("queue", metavar="QUEUE", help="folder to create (or an empty one)")
+    p.add_argument("--profile", metavar="FILE", help="cleaning profile (YAML) the queue cleans with")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="cleaning setting for the queue (repeatable)")
+    p.add_argument("--kind", default="ecg", help="kind for files that do not say: ecg, mcg, other (default ecg)")
+    p.add_argument("--units", default="mV", help="units for files that do not say (default mV)")
+    p.add_argument("--claim-idle-minutes", type=float, default=30.0, metavar="MIN", help="idle time after which a claim may be taken over (default 30)")
+    p.set_defaults(func=cmd_init)
+
+    p = subparsers.add_parser(
+        "add",
+        help="add recordings to a queue",
+        description="Add raw recordings (cleaned later by 'tracevet clean'), or with --pair one recording already cleaned elsewhere.",
+    )
+    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("files", nargs="*", metavar="FILE", help="recordings (.csv, .npy, .npz, .edf)")
+    p.add_argument("--pair", nargs=2, metavar=("ORIGINAL", "CLEANED"), help="add one record cleaned outside tracevet")
+    p.add_argument("--fs", type=float, help="sampling rate in Hz (needed for .npy)")
+    p.add_argument("--kind", help="ecg, mcg or other (default: from the file, else the queue's)")
+    p.add_argument("--units", help="units (default: from the file, else the queue's)")
+    p.add_argument("--reviewer", help="who adds them (default $TRACEVET_REVIEWER or login name)")
+    p.add_argument("--allow-duplicates", action="store_true", help="add files whose bytes are already in the queue")
+    p.set_defaults(func=cmd_add)
+
+    p = subparsers.add_parser(
+        "clean",
+        help="clean and assess every record waiting",
+        description="Clean and assess every record waiting to be cleaned or sent back for a re-run; resumable.",
+    )
+    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="change a cleaning setting for this batch")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cmd_clean)
+
+    p = subparsers.add_parser("status", help="counts per state, flags and who holds what", description="Show the queue's records by state, flags and claims.")
+    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("--list", action="store_true", help="one line per record")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=cmd_status)
+
+    p = subparsers.add_parser(
+        "decide",
+        help="accept, reject or send back a record",
+        description="Record a decision on a record's run (default: the newest). A rejection needs a note; so does accepting a run with a fail flag.",
+    )
+    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("record", metavar="RECORD")
+    p.add_argument("decision", choices=("accept", "reject", "rerun"))
+    p.add_argument("--note", default="", help="why (stored as typed)")
+    p.add_argument("--reviewer", help="who decides (default $TRACEVET_REVIEWER or login name)")
+    p.add_argument("--run", help="the run signed off (default: the newest)")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="with rerun: settings for the re-run (over the queue's)")
+    p.add_argument("--profile", metavar="FILE", help="with rerun: a profile for the re-run")
+    p.add_argument("--json", action="store_true", help="print the log entry as JSON")
+    p.set_defaults(func=cmd_decide)
+
+    for name, text in (("claim", "mark a record as being reviewed by you"), ("release", "give up your claim on a record")):
+        p = subparsers.add_parser(name, help=text, description=text[0].upper() + text[1:] + ".")
+        p.add_argument("queue", metavar="QUEUE")
+        p.add_argument("record", metavar="RECORD")
+        p.add_argument("--reviewer", help="who (default $TRACEVET_REVIEWER or login name)")
+        p.set_defaults(func=cmd_claim if name == "claim" else cmd_release)
+
+    p = subparsers.add_parser(
+        "log",
+        help="show or verify the decision log",
+        description="Show the decision log, check it (--verify: hash chain, every referenced file, the index) or remove a torn last line (--repair).",
+    )
+    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("--record", help="only entries about this record")
+    p.add_argument("--json", action="store_true", help="entries (or problems) as JSON")
+    group = p.add_mutually_exclusive_group()
+    group.add_argument("--verify", action="store_true", help="check everything; exit 1 if anything is wrong")
+    group.add_argument("--repair", action="store_true", help="remove a torn last line, keeping every complete entry")
+    p.add_argument("--reviewer", help="with --repair: who repairs (default $TRACEVET_REVIEWER or login name)")
+    p.set_defaults(func=cmd_log)
+
+    p = subparsers.add_parser(
+        "export",
+        help="export accepted records with a manifest and sign-off report",
+        description="Copy the accepted records' signed-off cleaned data to DEST with manifest.csv, manifest.json and sign-off.txt.",
+    )
+    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("dest", metavar="DEST", help="new folder to create")
+    p.add_argument("--reviewer", help="who exports (default $TRACEVET_REVIEWER or login name)")
+    p.set_defaults(func=cmd_export)
+
+
+def _reviewer(args) -> str:
+    from tracevet.workqueue import check_reviewer, default_reviewer
+
+    return check_reviewer(args.reviewer if getattr(args, "reviewer", None) is not None else default_reviewer())
+
+
+def _open(args):
+    from tracevet.workqueue import Queue
+
+    return Queue.open(args.queue)
+
+
+# ---------------------------------------------------------------- init / add
+def cmd_init(args) -> int:
+    """``tracevet init QUEUE``."""
+    from tracevet.workqueue import Queue, new_settings
+
+    cleaning: dict = {}
+    if args.profile or args.overrides:
+        from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, load_profile
+
+        settings = load_profile(args.profile) if args.profile else DEFAULT_SETTINGS
+        if args.overrides:
+            settings = apply_overrides(settings, args.overrides)
+        cleaning = settings.to_dict()
+    settings = new_settings(cleaning=cleaning, kind=args.kind, units=args.units, claim_idle_minutes=args.claim_idle_minutes)
+    queue = Queue.init(args.queue, settings)
+    print(f"queue ready: {inert(queue.root)} (settings in {inert(queue.paths.settings.name)})")
+    return 0
+
+
+def cmd_add(args) -> int:
+    """``tracevet add QUEUE FILE...`` or ``--pair ORIGINAL CLEANED``."""
+    from tracevet.cli.main import UsageError
+
+    if args.pair and args.files:
+        raise UsageError("tracevet add: give either FILE... or --pair ORIGINAL CLEANED, not both")
+    if not args.pair and not args.files:
+        raise UsageError("tracevet add: nothing to add (give FILE... or --pair ORIGINAL CLEANED)")
+    queue = _open(args)
+    reviewer = _reviewer(args)
+    if args.pair:
+        record_id = queue.add_pair(args.pair[0], args.pair[1], fs=args.fs, kind=args.kind, units=args.units, added_by=reviewer, allow_duplicates=args.allow_duplicates)
+        item = queue.record(record_id)
+        print(f"added {record_id} (cleaned elsewhere; {item.current_run_id} assessed: {_flag_text(item)})")
+        return 0
+    ids = queue.add_files(args.files, fs=args.fs, kind=args.kind, units=args.units, added_by=reviewer, allow_duplicates=args.allow_duplicates)
+    for path, record_id in zip(args.files, ids):
+        print(f"added {record_id}  <- {inert(path, 200)}")
+    print(f"{len(ids)} record(s) waiting to be cleaned; run 'tracevet clean {inert(args.queue, 200)}'")
+    return 0
+
+
+def _flag_text(item) -> str:
+    if item.current_run_id is None:
+        return "not cleaned"
+    if not item.n_flags:
+        return "no flags"
+    return f"{item.n_flags} flag(s), worst {item.worst_severity}"
+
+
+# --------------------------------------------------------------------- clean
+def cmd_clean(args) -> int:
+    """``tracevet clean QUEUE``: clean every waiting record with a progress bar."""
+    from tracevet.cli.progress import ProgressBar
+    from tracevet.workqueue.batch import clean_waiting
+
+    queue = _open(args)
+    bar = None if args.quiet else ProgressBar("cleaning")
+    failures = []
+
+    def progress(done, total, outcome):
+        if outcome is not None and outcome.error:
+            failures.append(outcome)
+            if bar:
+                bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
+        if bar and total:
+            bar.update(done, total)
+
+    outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress)
+    made = [o for o in outcomes if o.run_id]
+    flagged = Counter(o.worst_severity or "none" for o in made)
+    if not outcomes:
+        print("nothing waiting to be cleaned")
+        return 0
+    print(f"cleaned {len(made)} record(s): {flagged.get('fail', 0)} with fail flags, {flagged.get('warn', 0)} with warnings, {flagged.get('none', 0)} without flags")
+    if failures:
+        for outcome in failures:
+            if bar is None:
+                print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
+        print(f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting", file=sys.stderr)
+        return 1
+    return 0
+
+
+# -------------------------------------------------------------------- status
+def _holder_text(item) -> str:
+    if item.holder is None:
+        return ""
+    text = item.holder.describe()
+    return text + (" (may be taken over)" if item.holder_stale else "")
+
+
+def cmd_status(args) -> int:
+    """``tracevet status QUEUE``: counts per state, flags, claims."""
+    from tracevet.workqueue import STATES
+
+    queue = _open(args)
+    records = queue.records()
+    states = Counter(r.state for r in records)
+    cleaned = [r for r in records if r.current_run_id]
+    flags = Counter(r.worst_severity or "none" for r in cleaned)
+    held = [r for r in records if r.holder is not None]
+    if args.json:
+        document = {
+            "queue": str(queue.root),
+            "queue_id": queue.settings.queue_id,
+            "total": len(records),
+            "states": {s: states.get(s, 0) for s in STATES},
+            "flags": {"fail": flags.get("fail", 0), "warn": flags.get("warn", 0), "none": flags.get("none", 0)},
+            "claims": [dict(r.holder.to_dict(), stale=r.holder_stale) for r in held],
+            "records": [
+                {
+                    "id": r.id,
+                    "state": r.state,
+                    "source_name": r.source_name,
+                    "worst_severity": r.worst_severity,
+                    "n_flags": r.n_flags,
+                    "current_run": r.current_run_id,
+                    "holder": r.holder.reviewer if r.holder else None,
+                    "last_decision": r.last_decision,
+                }
+                for r in records
+            ],
+        }
+        json.dump(document, sys.stdout, ensure_ascii=False)
+        sys.stdout.write("\n")
+        return 0
+    print(f"queue {inert(queue.root)}: {len(records)} record(s)")
+    for state in STATES:
+        print(f"  {state:<10} {states.get(state, 0):>6}  {_STATE_WORDS[state]}")
+    print(f"flags on the newest runs: {flags.get('fail', 0)} fail, {flags.get('warn', 0)} warn, {flags.get('none', 0)} none")
+    if held:
+        print("held:")
+        for r in held:
+            print(f"  {r.id}  {_holder_text(r)}")
+    if args.list:
+        print("records:")
+        for r in records:
+            who = f"  held by {inert(r.holder.reviewer, 40)}" if r.holder else ""
+            flag = r.worst_severity or ("-" if r.current_run_id is None else "ok")
+            print(f"  {r.id:<24} {r.state:<10} {flag:<5} {r.n_runs} run(s)  {inert(r.source_name, 60)}{who}")
+    return 0
+
+
+# ---------------------------------------------------------- decide / claims
+def cmd_decide(args) -> int:
+    """``tracevet decide QUEUE RECORD accept|reject|rerun``."""
+    from tracevet.errors import InputError
+
+    queue = _open(args)
+    requested = None
+    if args.decision == "rerun" and (args.overrides or args.profile):
+        from tracevet.cleaning import apply_overrides, load_profile
+
+        requested = load_profile(args.profile) if args.profile else queue.settings.cleaning_settings()
+        if args.overrides:
+            requested = apply_overrides(requested, args.overrides)
+    elif args.overrides or args.profile:
+        raise InputError("--set/--profile", "settings go with a 'rerun' decision only")
+    entry = queue.decide(args.record, args.decision, args.note, _reviewer(args), run_id=args.run, requested_settings=requested)
+    if args.json:
+        print(json.dumps(entry.data, ensure_ascii=False))
+        return 0
+    word = {"accept": "accepted", "reject": "rejected", "rerun": "sent back for a re-run"}[entry.decision]
+    print(f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} (log entry {entry.seq}, hash {entry.hash[:16]})")
+    return 0
+
+
+def cmd_claim(args) -> int:
+    """``tracevet claim QUEUE RECORD``: hold a record from the command line (lapses by idle time)."""
+    queue = _open(args)
+    claim = queue.claim(args.record, _reviewer(args), bind_process=False)
+    print(f"{claim.record} is now held by {inert(claim.reviewer, 60)} (lapses after {queue.settings.claim_idle_minutes:g} min without activity)")
+    return 0
+
+
+def cmd_release(args) -> int:
+    """``tracevet release QUEUE RECORD``."""
+    queue = _open(args)
+    released = queue.release(args.record, _reviewer(args))
+    print(f"{args.record}: claim released" if released else f"{args.record}: was not claimed")
+    return 0
+
+
+# ----------------------------------------------------------------------- log
+def _entry_line(entry) -> str:
+    time = entry.time[:19].replace("T", " ")
+    who = inert(entry.reviewer, 40)
+    if entry.event == "decision":
+        what = f"{entry.decision:<7} {entry.record} {entry.run}"
+    elif entry.event == "add":
+        what = f"{'added':<7} {entry.record} from {inert(entry.get('source_name'), 60)}"
+    elif entry.event == "takeover":
+        what = f"{'takeover':<7} {entry.record}: {inert(entry.get('reason'), 80)}"
+    else:
+        what = f"{entry.event:<7} {inert(entry.note, 100)}"
+    note = f'  "{inert(entry.note, 300)}"' if entry.event == "decision" and entry.note else ""
+    digest = entry.get("settings_digest")
+    extra = f"  settings {digest[:12]}" if entry.event == "decision" and digest else ("  external run" if entry.event == "decision" else "")
+    return f"{entry.seq:>5}  {time}Z  {who:<12} {what}{extra}{note}"
+
+
+def cmd_log(args) -> int:
+    """``tracevet log QUEUE [--record ID] [--json] [--verify | --repair]``."""
+    queue = _open(args)
+    if args.verify:
+        from tracevet.workqueue.verify import head_summary
+
+        problems = queue.verify()
+        errors = [p for p in problems if not p.repaired]
+        head = head_summary(queue)
+        if args.json:
+            print(json.dumps({"ok": not errors, "problems": [p.to_dict() for p in problems], "head": head}, ensure_ascii=False))
+        else:
+            for problem in problems:
+                print(inert(str(problem)))
+            if errors:
+                print(f"tracevet: {len(errors)} problem(s) found", file=sys.stderr)
+            else:
+                print(f"log verified: {head['entries']} entries, chain intact, every referenced file matches its checksum; newest entry hash {head['hash']}")
+        return 1 if errors else 0
+    if args.repair:
+        entry = queue.repair_log(_reviewer(args))
+        if entry is None:
+            print("nothing to repair: the log ends with a complete entry")
+        else:
+            print(f"removed a torn last line ({entry.get('removed_bytes')} bytes, saved as {entry.get('saved_as')}); logged as entry {entry.seq}")
+        return 0
+    record = None
+    if args.record is not None:
+        from tracevet.workqueue.ids import check_record_id
+
+        record = check_record_id(args.record, "--record")
+    entries = queue.log_entries(record)
+    if args.json:
+        json.dump([e.data for e in entries], sys.stdout, ensure_ascii=False)
+        sys.stdout.write("\n")
+        return 0
+    if not entries:
+        print("no entries" + (f" for {record}" if record else ""))
+    for entry in entries:
+        print(_entry_line(entry))
+        if record is not None and entry.event == "decision":
+            print(f"         original sha256 {entry.get('original_sha256')}")
+            print(f"         cleaned  sha256 {entry.get('cleaned_sha256')}")
+            print(f"         settings digest {entry.get('settings_digest') or 'none (cleaned outside tracevet)'}")
+            print(f"         entry hash {entry.hash}")
+    from tracevet.workqueue import log as log_mod
+
+    torn = log_mod.read_log(queue.paths.log).torn
+    if torn is not None:
+        print(f"tracevet: the log ends with a torn line (line {torn.line}, {torn.size} bytes) from an interrupted write; 'tracevet log {inert(args.queue, 100)} --repair' removes it", file=sys.stderr)
+    return 0
+
+
+# -------------------------------------------------------------------- export
+def cmd_export(args) -> int:
+    """``tracevet export QUEUE DEST``."""
+    from tracevet.workqueue.export import export_accepted
+
+    queue = _open(args)
+    result = export_accepted(queue, args.dest, exported_by=_reviewer(args))
+    print(f"exported {result.count} accepted record(s) to {inert(result.dest)} (manifest.csv, manifest.json, sign-off.txt)")
+    return 0

@@ -1,0 +1,227 @@
+"""``tracevet log --verify``: check the log, every referenced file and the index.
+
+What is checked, and reported with the log line, record and file concerned:
+
+1. the hash chain (:func:`tracevet.workqueue.log.chain_problems`): every
+   entry's hash, its link to the entry before, sequence numbers, the head
+   anchor, a torn last line; and that every line is exactly as written;
+2. every record folder: ``record.json`` readable, the original present and
+   matching its SHA-256; every run's ``run.json`` readable and every file it
+   lists present and matching, no unlisted files, and (when the cleaning
+   engine is available) the settings digest recomputed from ``settings.yaml``;
+3. every log entry against the files: the record and run exist, and the
+   original and cleaned checksums recorded at decision time match the
+   files now; every record folder has an ``add`` entry;
+4. the index: rebuilt from the files and the log and compared; if it
+   differs it is rewritten (reported as repaired).
+"""
+
+from __future__ import annotations
+
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+from tracevet.workqueue import log as log_mod
+from tracevet.workqueue.checksums import sha256_file
+from tracevet.workqueue.index import Index, differences, rebuild
+from tracevet.workqueue.layout import LOG_NAME, RUN_META
+from tracevet.workqueue.records import list_record_ids, original_path, read_meta
+from tracevet.workqueue.runs import list_runs, read_run_meta, read_run_settings
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing ``verify`` found wrong.
+
+    Attributes
+    ----------
+    where : str
+        ``decisions.jsonl line N``, a file path relative to the queue, or ``index``.
+    message : str
+        What is wrong.
+    record : str or None
+        The record concerned, if any.
+    line : int or None
+        The log line concerned, if any.
+    file : str or None
+        The file concerned (relative to the queue), if any.
+    repaired : bool
+        True when verify fixed it (only the index, which is derived data).
+    """
+
+    where: str
+    message: str
+    record: str | None = None
+    line: int | None = None
+    file: str | None = None
+    repaired: bool = False
+
+    def __str__(self) -> str:
+        record = f" [record {self.record}]" if self.record else ""
+        fixed = " (repaired)" if self.repaired else ""
+        return f"{self.where}{record}: {self.message}{fixed}"
+
+    def to_dict(self) -> dict:
+        """Plain dict for ``--json`` output."""
+        return {k: getattr(self, k) for k in ("where", "message", "record", "line", "file", "repaired")}
+
+
+class _Sums:
+    """SHA-256 of files, each computed once."""
+
+    def __init__(self):
+        self.cache: dict[Path, str | None] = {}
+
+    def of(self, path: Path) -> str | None:
+        if path not in self.cache:
+            try:
+                self.cache[path] = sha256_file(path)
+            except OSError:
+                self.cache[path] = None
+        return self.cache[path]
+
+
+def _line_where(line: int | None) -> str:
+    return f"{LOG_NAME} line {line}" if line is not None else LOG_NAME
+
+
+def verify_queue(queue, rebuild_index: bool = True) -> list[Problem]:
+    """Check ``queue`` (a :class:`tracevet.workqueue.Queue`); return every problem found."""
+    paths = queue.paths
+    problems: list[Problem] = []
+    sums = _Sums()
+    with queue._lock(shared=True):
+        contents = log_mod.read_log(paths.log)
+        head = log_mod.read_head(paths)
+        line_faults = log_mod.line_problems(paths.log)
+    for line, record, message in log_mod.chain_problems(contents, head):
+        problems.append(Problem(_line_where(line), message, record=record, line=line, file=LOG_NAME))
+    bad_hash_lines = {p.line for p in problems if p.line is not None}
+    for line, message in line_faults:
+        if line not in bad_hash_lines:
+            problems.append(Problem(_line_where(line), message, line=line, file=LOG_NAME))
+
+    record_ids = list_record_ids(paths)
+    known_records: dict[str, dict] = {}
+    for record_id in record_ids:
+        problems.extend(_check_record(paths, record_id, sums, known_records))
+
+    added = set()
+    for entry in contents.entries:
+        record_id = entry.record
+        if entry.event == "add" and isinstance(record_id, str):
+            added.add(record_id)
+        if entry.event not in ("add", "decision") or not isinstance(record_id, str):
+            continue
+        where = _line_where(entry.line)
+        meta = known_records.get(record_id)
+        if meta is None:
+            problems.append(Problem(where, "names a record that is not in the queue (its folder is missing)", record=record_id, line=entry.line))
+            continue
+        original = original_path(paths, record_id, meta)
+        if entry.get("original_sha256") != sums.of(original):
+            problems.append(Problem(where, f"original checksum in the entry does not match {paths.relative(original)}", record=record_id, line=entry.line, file=paths.relative(original)))
+        if entry.event == "decision":
+            run_id = entry.run
+            if not isinstance(run_id, str) or run_id not in list_runs(paths, record_id):
+                problems.append(Problem(where, f"signs off run {str(run_id)[:20]!r}, which does not exist", record=record_id, line=entry.line))
+                continue
+            cleaned_name = entry.get("cleaned_file") or "cleaned.npz"
+            cleaned = paths.run_dir(record_id, run_id) / str(cleaned_name)
+            if entry.get("cleaned_sha256") != sums.of(cleaned):
+                problems.append(Problem(where, f"cleaned data signed off here no longer match: {paths.relative(cleaned)} was changed or replaced", record=record_id, line=entry.line, file=paths.relative(cleaned)))
+    for record_id in record_ids:
+        if record_id in known_records and record_id not in added:
+            problems.append(Problem(paths.relative(paths.record_dir(record_id)), "record folder has no 'add' entry in the log (copied in by hand?)", record=record_id))
+
+    if rebuild_index:
+        problems.extend(_check_index(queue))
+    return problems
+
+
+def _check_record(paths, record_id: str, sums: _Sums, known: dict) -> list[Problem]:
+    problems = []
+    try:
+        meta = read_meta(paths, record_id)
+        original = original_path(paths, record_id, meta)
+    except Exception as exc:
+        return [Problem(paths.relative(paths.record_meta(record_id)), f"unreadable record metadata ({str(exc)[:80]})", record=record_id, file=paths.relative(paths.record_meta(record_id)))]
+    known[record_id] = meta
+    actual = sums.of(original)
+    if actual is None:
+        problems.append(Problem(paths.relative(original), "original file is missing", record=record_id, file=paths.relative(original)))
+    elif actual != meta.get("original_sha256"):
+        problems.append(Problem(paths.relative(original), "original file does not match its checksum in record.json", record=record_id, file=paths.relative(original)))
+    for run_id in list_runs(paths, record_id):
+        folder = paths.run_dir(record_id, run_id)
+        try:
+            run = read_run_meta(paths, record_id, run_id)
+        except Exception as exc:
+            problems.append(Problem(paths.relative(folder / RUN_META), f"unreadable run metadata ({str(exc)[:80]})", record=record_id, file=paths.relative(folder / RUN_META)))
+            continue
+        files = run.get("files") if isinstance(run.get("files"), dict) else {}
+        for name, expected in sorted(files.items()):
+            target = folder / str(name)
+            if "/" in str(name) or "\\" in str(name):
+                problems.append(Problem(paths.relative(folder / RUN_META), f"lists a file outside the run folder: {str(name)[:60]!r}", record=record_id))
+                continue
+            got = sums.of(target)
+            if got is None:
+                problems.append(Problem(paths.relative(target), "file is missing", record=record_id, file=paths.relative(target)))
+            elif got != expected:
+                problems.append(Problem(paths.relative(target), "file does not match its checksum in run.json (changed or replaced)", record=record_id, file=paths.relative(target)))
+        for name in sorted(os.listdir(folder)):
+            if name != RUN_META and name not in files:
+                problems.append(Problem(paths.relative(folder / name), "file not listed in run.json (added afterwards)", record=record_id, file=paths.relative(folder / name)))
+        problems.extend(_check_digest(paths, record_id, run_id, run))
+    return problems
+
+
+def _check_digest(paths, record_id: str, run_id: str, run: dict) -> list[Problem]:
+    if run.get("origin") != "tracevet":
+        return []
+    try:
+        from tracevet.cleaning import CleaningSettings
+    except ImportError:
+        return []
+    where = paths.relative(paths.run_dir(record_id, run_id) / "settings.yaml")
+    try:
+        settings = read_run_settings(paths, record_id, run_id)
+        digest = CleaningSettings.from_dict(settings or {}, source=where).digest()
+    except Exception as exc:
+        return [Problem(where, f"settings cannot be read back ({str(exc)[:80]})", record=record_id, file=where)]
+    if digest != run.get("settings_digest"):
+        return [Problem(where, "settings digest in run.json does not match the settings", record=record_id, file=where)]
+    return []
+
+
+def _check_index(queue) -> list[Problem]:
+    paths = queue.paths
+    with queue._lock():
+        stored = Index.load(paths, catch_up=False)
+        fresh, unreadable = rebuild(paths)
+        changed = differences(stored, fresh)
+        damaged = list(stored.damaged)
+        if changed or damaged or not paths.index.exists():
+            fresh.write_snapshot(paths)
+    problems = []
+    if damaged:
+        problems.append(Problem("index", f"damaged ({'; '.join(damaged)[:120]}); rebuilt from the records and the log", repaired=True))
+    if changed:
+        shown = ", ".join(changed[:5]) + (" ..." if len(changed) > 5 else "")
+        problems.append(Problem("index", f"out of date for {len(changed)} record(s) ({shown}); rebuilt from the records and the log", repaired=True))
+    del unreadable  # unreadable records are reported by the record checks
+    return problems
+
+
+def head_summary(queue) -> dict:
+    """Count and hash of the newest log entry (to note down outside the queue)."""
+    contents = log_mod.read_log(queue.paths.log)
+    if not contents.entries:
+        return {"entries": 0, "hash": log_mod.GENESIS}
+    last = contents.entries[-1]
+    return {"entries": last.seq, "hash": last.hash}
+
+
