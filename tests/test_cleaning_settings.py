@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 import pywt
@@ -83,7 +84,8 @@ def test_digest_is_sha256_of_sorted_canonical_json_and_stable_across_processes()
     other = apply_overrides(DEFAULT_SETTINGS, ["level=5"])
     assert other.digest() != DEFAULT_SETTINGS.digest()
     code = "from tracevet.cleaning import DEFAULT_SETTINGS as s; print(s.digest())"
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env={"PYTHONPATH": "src", "PYTHONHASHSEED": "123"})
+    src = str(Path(__file__).resolve().parents[1] / "src")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env={"PYTHONPATH": src, "PYTHONHASHSEED": "123"})
     assert out.stdout.strip() == DEFAULT_SETTINGS.digest()
 
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable, Iterator
+from typing import Callable
 
 import numpy as np
 
@@ -75,9 +75,3 @@ def process_inplace(
             after_block(i)
     if pending is not None:
         buf[pending[0] : pending[1]] = pending[2]
-
-
-def iter_segments(buf: np.ndarray, blocks: list[Block]) -> Iterator[tuple[np.ndarray, Block]]:
-    """Yield read-only views of each block's segment."""
-    for block in blocks:
-        yield buf[block.start : block.stop], block

@@ -39,7 +39,7 @@ Progress = Callable[[float], None] | None
 # Statistics for the thresholds use at most this many coefficients per level.
 STATS_MAX_COEFFS = 1 << 21
 # SURE and hybrid sort at most this many of them (evenly spaced).
-SURE_MAX_COEFFS = 1 << 17
+SURE_MAX_COEFFS = 1 << 16
 
 
 def _work_dtype(x: np.ndarray) -> np.dtype:

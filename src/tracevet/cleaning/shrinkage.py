@@ -16,29 +16,26 @@ def as_wavelet(wavelet: str | pywt.Wavelet) -> pywt.Wavelet:
 
 
 def _soft(x: np.ndarray, lam: float) -> None:
-    # eta_soft(x) = sign(x) max(|x| - lam, 0)  (Donoho & Johnstone 1994).
-    # Only the few coefficients above lam are touched after zeroing the rest.
-    keep = np.flatnonzero(np.abs(x) > lam)
-    values = x[keep]
-    x.fill(0)
-    x[keep] = values - np.copysign(np.asarray(lam, dtype=x.dtype), values)
+    # eta_soft(x) = sign(x) max(|x| - lam, 0)  (Donoho & Johnstone 1994)
+    mag = np.abs(x)
+    mag -= x.dtype.type(lam)
+    np.maximum(mag, 0, out=mag)
+    np.copysign(mag, x, out=x)
 
 
 def _hard(x: np.ndarray, lam: float) -> None:
     # eta_hard(x) = x 1{|x| >= lam}; |x| == lam is kept, as PyWavelets does.
-    keep = np.flatnonzero(np.abs(x) >= lam)
-    values = x[keep]
-    x.fill(0)
-    x[keep] = values
+    np.copyto(x, 0, where=np.abs(x) < lam)
 
 
 def _garrote(x: np.ndarray, lam: float) -> None:
-    # Non-negative garrote x max(1 - lam^2 / x^2, 0) = x - lam^2 / x for |x| > lam
+    # Non-negative garrote x max(1 - lam^2 / x^2, 0) = x - lam^2 / x for |x| > lam, else 0
     # (Gao 1998, J Comput Graph Stat 7(4):469-488; Breiman 1995, Technometrics 37:373-384).
-    keep = np.flatnonzero(np.abs(x) > lam)
-    values = x[keep]
-    x.fill(0)
-    x[keep] = values - np.asarray(lam * lam, dtype=x.dtype) / values
+    drop = np.abs(x) <= lam
+    with np.errstate(divide="ignore", invalid="ignore"):
+        shrink = np.divide(x.dtype.type(lam * lam), x)
+    x -= shrink
+    np.copyto(x, 0, where=drop)
 
 
 _THRESHOLD_FUNCTIONS = {"soft": _soft, "hard": _hard, "garrote": _garrote}
