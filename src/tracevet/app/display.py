@@ -86,10 +86,13 @@ def format_number(value) -> str:
     if isinstance(value, float):
         if not math.isfinite(value):
             return str(value)
+        if value.is_integer() and abs(value) < 1e9:
+            return str(int(value))
         magnitude = abs(value)
-        if magnitude == 0:
-            return "0"
-        if 0.01 <= magnitude < 10000:
-            return f"{value:.3g}" if magnitude < 1 else f"{value:.1f}" if magnitude >= 100 else f"{value:.2f}"
-        return f"{value:.2e}"
+        if 1e-3 <= magnitude < 1e5:
+            text = f"{value:.4g}"
+            if float(text) == round(value) and not value.is_integer():
+                text = f"{value:.6f}".rstrip("0")  # e.g. a correlation of 0.999994 must not read 1
+            return text
+        return f"{value:.3e}"
     return inert(value, 40)

@@ -39,10 +39,9 @@ def _flag_line(flag) -> Text:
     line.append("  ")
     line.append_text(inert_text(flag.id, 28, style="bold"))
     channel = getattr(flag, "channel", None)
-    if channel is not None:
-        line.append(f"  ch{int(channel) + 1}" if isinstance(channel, int) else "  ch ")
-        if not isinstance(channel, int):
-            line.append_text(inert_text(channel, 12))
+    if channel:
+        line.append("  ")
+        line.append_text(inert_text(channel, 12))
     line.append("  value ", style="dim")
     line.append(format_number(flag.value))
     line.append("  limit ", style="dim")
@@ -74,12 +73,31 @@ def metrics_panel(assessment) -> Text:
         return Text("no metrics in this assessment", style="dim")
     text = Text()
     for index, (name, value) in enumerate(items):
-        cell = Text.assemble(inert_text(name, 24, style="dim"), " ", format_number(value))
-        cell.pad_right(max(0, 38 - cell.cell_len))
+        cell = Text.assemble(inert_text(name, 28, style="dim"), " ", format_number(value))
+        cell.pad_right(max(0, 39 - cell.cell_len))
         text.append_text(cell)
         if index % 2 == 1:
             text.append("\n")
     text.rstrip()
+    return text
+
+
+def record_line(record_id: str, source_name: str, original) -> Text:
+    """``record ID from FILE; channels A, B; units``: where the record came from, inert."""
+    text = Text()
+    text.append("record ", style="dim")
+    text.append_text(inert_text(record_id, 40, style="bold"))
+    if source_name:
+        text.append(" from ", style="dim")
+        text.append_text(inert_text(source_name, 80))
+    if original is not None:
+        text.append("  channels ", style="dim")
+        for index, name in enumerate(original.channels):
+            if index:
+                text.append(", ")
+            text.append_text(inert_text(name, 30))
+        text.append("  units ", style="dim")
+        text.append_text(inert_text(original.units or "unknown", 10))
     return text
 
 
@@ -101,10 +119,16 @@ def run_panel(info, runs: list, current_run_id: str | None) -> Text:
     text.append_text(inert_text(getattr(info, "created", "-"), 25))
     text.append("\norigin ", style="dim")
     text.append_text(inert_text(getattr(info, "origin", "-"), 30))
+    made_by = getattr(info, "made_by", None)
+    if made_by:
+        text.append(" asked by ", style="dim")
+        text.append_text(inert_text(made_by, 30))
     text.append("  settings digest ", style="dim")
-    text.append_text(inert_text(str(getattr(info, "digest", "-"))[:16], 16))
+    text.append_text(inert_text(str(getattr(info, "settings_digest", None) or "-")[:16], 16))
     text.append("\n")
-    settings = getattr(info, "settings", {}) or {}
+    settings = getattr(info, "settings", None) or {}
+    if not settings:
+        text.append("cleaned outside tracevet: no settings recorded", style="dim")
     for index, (name, value) in enumerate(settings.items()):
         cell = Text.assemble(inert_text(name, 18, style="dim"), "=", inert_text(value, 14))
         cell.pad_right(max(0, 26 - cell.cell_len))
@@ -160,8 +184,8 @@ def compare_panel(previous, shown) -> Text:
         text.append(format_number(metrics_after.get(name)))
         text.append("\n")
     text.append("settings changed\n", style="bold")
-    before = getattr(previous.info, "settings", {}) or {}
-    after = getattr(shown.info, "settings", {}) or {}
+    before = getattr(previous.info, "settings", None) or {}
+    after = getattr(shown.info, "settings", None) or {}
     for name in sorted(set(before) | set(after)):
         if before.get(name) != after.get(name):
             text.append_text(inert_text(name, 23, style="dim"))

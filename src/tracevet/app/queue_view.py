@@ -10,11 +10,14 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from rich.text import Text
 
-from tracevet.app.display import SEVERITY_RANK, severity_key
+from tracevet.app.display import SEVERITY_RANK, inert_text, severity_key
 from tracevet.app.plots import Region, TracePyramids
 
-DECIDED_STATES = ("accepted", "rejected")
+# States of tracevet.workqueue records, as the worklist groups them.
+DECIDED_STATES = ("accepted", "rejected", "sent-back")
+REVIEW_STATES = ("to-review", "in-review")
 
 
 def holder_name(holder) -> str | None:
@@ -27,6 +30,46 @@ def holder_name(holder) -> str | None:
     if isinstance(holder, dict):
         return str(holder.get("reviewer", ""))
     return str(holder)
+
+
+def holder_label(record) -> str:
+    """Holder for the worklist column: the reviewer, marked ``(idle)`` when the claim may be taken over."""
+    name = holder_name(getattr(record, "holder", None))
+    if not name:
+        return ""
+    return f"{name} (idle)" if getattr(record, "holder_stale", False) else name
+
+
+def record_detail(record) -> Text:
+    """Three inert lines about a record: file it came from and holder; last decision; its note."""
+    if record is None:
+        return Text("")
+    text = Text(no_wrap=True, overflow="ellipsis")
+    text.append_text(inert_text(record.id, 30, style="bold"))
+    source = getattr(record, "source_name", "")
+    if source:
+        text.append(" from ", style="dim")
+        text.append_text(inert_text(source, 60))
+    holder = getattr(record, "holder", None)
+    if holder is not None:
+        text.append("  held by ", style="dim")
+        text.append_text(inert_text(holder.describe() if hasattr(holder, "describe") else holder_name(holder), 80))
+    text.append("\n")
+    last = getattr(record, "last_decision", None)
+    if isinstance(last, dict) and last:
+        text.append("last: ", style="dim")
+        text.append_text(inert_text(last.get("decision"), 10, style="bold"))
+        text.append(" by ", style="dim")
+        text.append_text(inert_text(last.get("reviewer"), 30))
+        text.append(" on ", style="dim")
+        text.append_text(inert_text(last.get("run"), 20))
+        text.append("  ")
+        text.append_text(inert_text(str(last.get("time", ""))[:16].replace("T", " "), 16, style="dim"))
+        text.append("\nnote: ", style="dim")
+        text.append_text(inert_text(last.get("note") or "-", 200))
+    else:
+        text.append("no decision yet", style="dim")
+    return text
 
 
 def queue_name(queue) -> str:
@@ -42,7 +85,7 @@ def is_decided(record) -> bool:
 def matches_filter(record, chosen: str) -> bool:
     """Whether ``record`` passes the worklist filter ``chosen``."""
     if chosen == "to review":
-        return not is_decided(record)
+        return str(record.state) in REVIEW_STATES
     if chosen == "flagged":
         return (record.n_flags or 0) > 0
     if chosen == "decided":
@@ -67,6 +110,16 @@ def sort_records(records: list, order: str) -> list:
             str(r.id),
         ),
     )
+
+
+def last_decision_word(record) -> str:
+    """The last decision's word (``accept``, ``reject``, ``rerun``) or an empty string."""
+    last = getattr(record, "last_decision", None)
+    if not last:
+        return ""
+    if isinstance(last, dict):
+        return str(last.get("decision") or "")
+    return str(last)
 
 
 def next_record(queue, reviewer: str) -> str | None:
@@ -129,20 +182,27 @@ def metric_items(assessment) -> list[tuple[str, object]]:
     return sorted(metrics.items(), key=lambda kv: str(kv[0]))
 
 
-def flagged_regions(assessment, channel: int | None = None) -> tuple[Region, ...]:
-    """Flagged stretches of time as plot regions (severity from the flag they belong to)."""
-    severities = {}
+def _channel_beats(assessment, channel: int):
+    channels = list(getattr(assessment, "channels", ()) or ())
+    return channels[channel] if 0 <= channel < len(channels) else None
+
+
+def flagged_regions(assessment, channel: int) -> tuple[Region, ...]:
+    """Flagged beats and stretches of one channel as plot regions, with their flag's severity."""
+    beats = _channel_beats(assessment, channel)
+    if beats is None:
+        return ()
+    name = beats.channel
+    severities: dict[str, str] = {}
     for flag in flag_list(assessment):
-        key = flag.id
-        if SEVERITY_RANK[severity_key(flag.severity)] > SEVERITY_RANK[severity_key(severities.get(key))]:
-            severities[key] = flag.severity
-    regions = []
-    for region in getattr(assessment, "regions", ()) or ():
-        region_channel = getattr(region, "channel", None)
-        if channel is not None and region_channel is not None and region_channel != channel:
+        if getattr(flag, "channel", name) not in (name, None, ""):
             continue
-        severity = severities.get(region.flag_id, "warn")
-        regions.append(Region(float(region.start_s), float(region.end_s), severity_key(severity)))
+        if SEVERITY_RANK[severity_key(flag.severity)] > SEVERITY_RANK[severity_key(severities.get(flag.id))]:
+            severities[flag.id] = flag.severity
+    regions = [
+        Region(float(start), float(end), severity_key(severities.get(str(flag_id), "warn")))
+        for start, end, flag_id in beats.regions
+    ]
     return tuple(sorted(regions, key=lambda r: r.start_s))
 
 
@@ -159,11 +219,14 @@ def next_region_start(regions: tuple[Region, ...], after_s: float, backwards: bo
 
 
 def beat_templates(assessment, channel: int):
-    """(time_s, original_template, cleaned_template) of one channel, or None if no beats were found."""
-    templates = getattr(assessment, "templates", None)
-    if not templates:
+    """(time_s, original_template, cleaned_template) of one channel, or None if it has no template."""
+    beats = _channel_beats(assessment, channel)
+    if beats is None or len(beats.template_time_s) < 2:
         return None
-    item = templates[channel] if channel < len(templates) else None
-    if item is None:
-        return None
-    return item.time_s, item.original, item.cleaned
+    return beats.template_time_s, beats.template_original, beats.template_cleaned
+
+
+def beat_count(assessment, channel: int) -> int:
+    """Number of R peaks detected in one channel (0 when unknown)."""
+    beats = _channel_beats(assessment, channel)
+    return 0 if beats is None else int(len(beats.r_peaks))

@@ -92,6 +92,7 @@ class RecordScreen(Screen):
         self.view = "traces"
         self.panel = "flags"
         self.state = ""
+        self.source_name = ""
         self.last_plots = None
         self._panel_key = None
 
@@ -126,7 +127,7 @@ class RecordScreen(Screen):
     def load_record(self) -> None:
         """Read the original, the runs and the current run (worker thread)."""
         queue = self.app.queue
-        summary = next((r for r in queue.records() if str(r.id) == str(self.record_id)), None)
+        summary = queue.record(self.record_id)
         original = queue.load_original(self.record_id)
         runs = list(queue.runs(self.record_id))
         current = getattr(summary, "current_run_id", None) or (runs[-1].run_id if runs else None)
@@ -146,6 +147,7 @@ class RecordScreen(Screen):
         self.current_run_id = str(current) if current is not None else None
         self.shown_run_id = self.current_run_id
         self.state = str(getattr(summary, "state", ""))
+        self.source_name = str(getattr(summary, "source_name", "") or "")
         self.span_s = min(DEFAULT_SPAN_S, original.duration_s)
         self.start_s = 0.0
         self.redraw()
@@ -193,7 +195,7 @@ class RecordScreen(Screen):
         rec = self.original
         if rec is not None:
             title.append(f"  ch {self.channel + 1}/{rec.n_channels} ")
-            title.append_text(inert_text(rec.channels[self.channel], 12))
+            title.append_text(inert_text(rec.channels[self.channel], 28))
         run = self.shown_run
         if run is not None:
             title.append("  ")
@@ -266,14 +268,14 @@ class RecordScreen(Screen):
             widget.update(self.plot_text(plot))
         units = inert_text(self.original.units or "units?", 8)
         line = Text(no_wrap=True, overflow="ellipsis")
-        line.append("averaged beat", style="bold")
-        line.append("  original ", style="dim")
+        line.append("averaged beat ", style="bold")
+        line.append("orig ", style="dim")
         line.append("━━", style="rgb(230,159,0)")
-        line.append(" vs cleaned ", style="dim")
+        line.append(" clean ", style="dim")
         line.append("━━" if self.app.colour else "••", style="rgb(86,180,233)")
-        line.append(f"  {format_value(overlay.y_low)}..{format_value(overlay.y_high)} ")
+        line.append(f" {format_value(overlay.y_low)}..{format_value(overlay.y_high)} ")
         line.append_text(units)
-        line.append("  o - c ", style="dim")
+        line.append("  o-c ", style="dim")
         line.append(f"{format_value(difference.y_low)}..{format_value(difference.y_high)} ", style="bold")
         line.append_text(units)
         self.query_one("#window-line", Static).update(line)
@@ -315,7 +317,9 @@ class RecordScreen(Screen):
         elif self.panel == "metrics":
             body = info_text.metrics_panel(run.assessment)
         elif self.panel == "run":
-            body = info_text.run_panel(run.info, self.runs, self.current_run_id)
+            body = info_text.record_line(self.record_id, self.source_name, self.original)
+            body.append("\n")
+            body.append_text(info_text.run_panel(run.info, self.runs, self.current_run_id))
         else:
             body = info_text.compare_panel(previous, run)
         self.query_one("#panel-body", Static).update(body)
@@ -463,6 +467,7 @@ class RecordScreen(Screen):
         except TracevetError as exc:
             self.notify(f"not saved: {exc.one_line()}", severity="error", timeout=8)
             return
+        self.app.held_claim = None  # the queue ends the claim with the decision
         seq = getattr(entry, "seq", None)
         where = f" (log entry {seq})" if seq else ""
         self.app.notify(f"saved: {decision} {self.record_id} run {run_id}{where}", timeout=5)
@@ -487,7 +492,7 @@ class RecordScreen(Screen):
             self.notify(f"read-only: {self.holder_text}", severity="warning")
             return
         run = self.shown_run
-        settings = dict(getattr(run.info, "settings", {}) or {}) if run is not None else {}
+        settings = dict(getattr(run.info, "settings", None) or {}) if run is not None else {}
 
         def finished(new_run_id: str | None) -> None:
             if new_run_id:
@@ -496,7 +501,8 @@ class RecordScreen(Screen):
                 self.runs = list(self.app.queue.runs(self.record_id))
                 self.show_run(str(new_run_id))
 
-        self.app.push_screen(RerunScreen(self.record_id, settings), finished)
+        source_run = run.run_id if run is not None else ""
+        self.app.push_screen(RerunScreen(self.record_id, settings, source_run), finished)
 
     def action_back(self) -> None:
         """Back to the worklist, releasing the claim."""

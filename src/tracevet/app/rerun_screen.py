@@ -37,9 +37,10 @@ class RerunScreen(ModalScreen[str | None]):
         "cancel": "stop a running re-run (nothing is kept), or close the form",
     }
 
-    def __init__(self, record_id: str, settings: dict) -> None:
+    def __init__(self, record_id: str, settings: dict, source_run: str = "") -> None:
         super().__init__()
         self.record_id = record_id
+        self.source_run = source_run
         merged = DEFAULT_SETTINGS.to_dict()
         merged.update({k: v for k, v in (settings or {}).items() if k in merged})
         self.initial = merged
@@ -49,7 +50,11 @@ class RerunScreen(ModalScreen[str | None]):
     def compose(self) -> ComposeResult:
         """Title, a two-column grid of settings, the help line, progress and keys."""
         with Vertical(id="rerun-box"):
-            yield Static(Text.assemble(("RE-RUN ", "bold reverse"), inert_text(self.record_id, 40)), id="rerun-title")
+            title = Text.assemble(("RE-RUN ", "bold reverse"), " ", inert_text(self.record_id, 40))
+            if self.source_run:
+                title.append("  settings start from ", style="dim")
+                title.append_text(inert_text(self.source_run, 20))
+            yield Static(title, id="rerun-title")
             with Grid(id="rerun-grid"):
                 for name, value in self.initial.items():
                     yield Static(Text(name, style="dim"), classes="rerun-label")
@@ -115,7 +120,7 @@ class RerunScreen(ModalScreen[str | None]):
             self.app.call_from_thread(self.show_progress, float(fraction))
 
         try:
-            run_id = self.app.queue.add_run(self.record_id, settings, progress=progress)
+            run_id = self.app.queue.add_run(self.record_id, settings, progress=progress, reviewer=self.app.reviewer)
         except RerunCancelled:
             self.app.call_from_thread(self.stopped, "cancelled: no run was added")
             return

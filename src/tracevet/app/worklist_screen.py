@@ -46,6 +46,7 @@ class WorklistScreen(Screen):
         """Status line, the table, the key footer."""
         yield Static(id="worklist-status")
         yield DataTable(id="worklist-table", cursor_type="row", zebra_stripes=True)
+        yield Static(id="worklist-detail")
         yield Footer()
 
     def on_mount(self) -> None:
@@ -85,8 +86,8 @@ class WorklistScreen(Screen):
                 Text(format_duration(record.duration_s)),
                 Text(str(record.n_channels)),
                 severity_text(record.worst_severity, record.n_flags),
-                inert_text(queue_view.holder_name(record.holder) or "", 9),
-                inert_text(record.last_decision or "", 8),
+                inert_text(queue_view.holder_label(record), 9),
+                inert_text(queue_view.last_decision_word(record), 8),
                 key=record.id,
             )
         ids = [r.id for r in rows]
@@ -105,8 +106,15 @@ class WorklistScreen(Screen):
             FILTERS[self.filter_index],
         )
         self.query_one("#worklist-status", Static).update(status)
+        if not rows:
+            self.query_one("#worklist-detail", Static).update(Text("no record matches this filter (f: next filter)", style="dim"))
         if not self.records:
             self.notify("this queue holds no records yet: add some with 'tracevet add'", timeout=8)
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        """Show the highlighted record's file name, holder and last decision below the table."""
+        record = next((r for r in self.records if r.id == event.row_key.value), None)
+        self.query_one("#worklist-detail", Static).update(queue_view.record_detail(record))
 
     def selected_id(self) -> str | None:
         """Id of the record under the cursor, or None."""

@@ -90,6 +90,14 @@ def fill_default_queue_with_demo(path: Path) -> bool:
     return True
 
 
+def _holds_records(path: Path) -> bool:
+    """True when ``path`` is a queue with at least one record (False if it is not a queue yet)."""
+    try:
+        return bool(_open_queue(path).records())
+    except InputError:
+        return False
+
+
 def _open_queue(path: Path):
     from tracevet.workqueue import Queue
 
@@ -108,11 +116,10 @@ def run(args: argparse.Namespace) -> int:
     reviewer = (args.reviewer or default_reviewer()).strip()
     if not reviewer or any(ord(c) < 32 or ord(c) == 127 for c in reviewer) or len(reviewer) > 64:
         raise InputError("--reviewer", "the reviewer name must be 1-64 printable characters")
-    queue = _open_queue(path)
-    if is_default and not queue.records():
+    if is_default and not _holds_records(path):
         if not fill_default_queue_with_demo(path):
             return 2
-        queue = _open_queue(path)
+    queue = _open_queue(path)
     if not sys.stdout.isatty() or not sys.stdin.isatty():
         raise InputError("terminal", "tracevet review needs an interactive terminal (stdin and stdout)")
     from tracevet.app.app import ReviewApp
