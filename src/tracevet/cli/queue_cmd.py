@@ -1,9 +1,8 @@
 """Queue commands: init, add, clean, status, decide, claim, release, log, export.
 
 Thin wrappers over :mod:`tracevet.workqueue`. Exit codes: 0 success; 1 for
-``log --verify`` problems, records that could not be cleaned, and a
-decision refused because another reviewer holds the record; 2 bad input
-(one line on stderr).
+``log --verify`` problems and records that could not be cleaned; 2 bad
+input, or a record held by another reviewer (one line on stderr).
 """
 
 from __future__ import annotations
