@@ -8,8 +8,9 @@ from rich.text import Text
 
 from tracevet.app.plots import (
     CANVAS_OFFSET,
-    Region,
+    Regions,
     TracePyramids,
+    flag_strip,
     format_clock,
     render_beat_overlay,
     render_trace_plots,
@@ -61,7 +62,7 @@ def test_colour_output_converts_to_plain_rich_text():
 def test_flag_strip_marks_the_worst_severity_per_column():
     orig, clean = _spiky(2500, 250.0)
     traces = TracePyramids.from_arrays(orig, clean, 250.0)
-    regions = (Region(2.0, 4.0, "warn"), Region(3.0, 3.5, "fail"))
+    regions = Regions.from_items([(2.0, 4.0, "warn"), (3.0, 3.5, "fail")])
     strip = render_trace_plots(traces, 0, 10, 80, (3, 3, 4), colour=False, regions=regions).flag_strip
     assert "fail" in strip and "warn" in strip
     assert strip[0] == "" and strip[-1] == ""
@@ -82,3 +83,15 @@ def test_clock_labels():
     assert format_clock(12.5, 10) == "12.5s"
     assert format_clock(3725, 3600) == "1:02:05"
     assert format_clock(100.0, 10) == "1:40.0"
+
+
+def test_flag_strip_handles_a_day_of_flagged_beats_and_finds_the_next_one():
+    starts = np.arange(0, 86400, 0.8)
+    regions = Regions.from_items([(s, s + 0.1, "fail" if i % 50 == 0 else "warn") for i, s in enumerate(starts)])
+    strip = flag_strip(regions, 0.0, 86400.0, 72)
+    assert set(strip) == {"fail"}  # every column holds a fail at this zoom
+    strip = flag_strip(regions, 0.0, 4.0, 72)
+    assert strip[0] == "fail" and "warn" in strip and "" in strip
+    assert regions.next_start(0.0) == 0.8
+    assert regions.next_start(0.8, backwards=True) == 0.0
+    assert regions.next_start(86399.9) is None

@@ -84,13 +84,49 @@ class TracePyramids:
         return len(self.original) / self.fs
 
 
-@dataclass(frozen=True)
-class Region:
-    """A flagged stretch of time to mark under the plots."""
+SEVERITY_CODES = {"warn": 1, "fail": 2}
+_SEVERITY_NAMES = ("", "warn", "fail")
 
-    start_s: float
-    end_s: float
-    severity: str  # "warn" or "fail"
+
+@dataclass(frozen=True)
+class Regions:
+    """Flagged stretches of time, as sorted arrays (a 24-hour record may hold 100 000).
+
+    Attributes
+    ----------
+    start_s, end_s : numpy.ndarray
+        Start and end of every region in seconds (float64), sorted by start.
+    code : numpy.ndarray
+        Severity per region: 1 warn, 2 fail (int8).
+    """
+
+    start_s: np.ndarray
+    end_s: np.ndarray
+    code: np.ndarray
+
+    @classmethod
+    def from_items(cls, items) -> "Regions":
+        """Build from ``(start_s, end_s, severity)`` items (severity ``warn`` or ``fail``)."""
+        items = sorted(items, key=lambda item: float(item[0]))
+        return cls(
+            np.array([float(i[0]) for i in items], dtype=np.float64),
+            np.array([float(i[1]) for i in items], dtype=np.float64),
+            np.array([SEVERITY_CODES.get(str(i[2]), 1) for i in items], dtype=np.int8),
+        )
+
+    def __len__(self) -> int:
+        return int(self.start_s.size)
+
+    def next_start(self, after_s: float, backwards: bool = False) -> float | None:
+        """Start of the first region beginning after ``after_s`` (or the last one before it)."""
+        if backwards:
+            index = int(np.searchsorted(self.start_s, after_s - 1e-9, side="left")) - 1
+            return float(self.start_s[index]) if index >= 0 else None
+        index = int(np.searchsorted(self.start_s, after_s + 1e-9, side="right"))
+        return float(self.start_s[index]) if index < self.start_s.size else None
+
+
+NO_REGIONS = Regions(np.zeros(0), np.zeros(0), np.zeros(0, dtype=np.int8))
 
 
 @dataclass(frozen=True)
@@ -227,7 +263,7 @@ def render_trace_plots(
     width: int,
     heights: tuple[int, int, int],
     colour: bool = True,
-    regions: tuple[Region, ...] = (),
+    regions: Regions = NO_REGIONS,
 ) -> TracePlots:
     """Render original, cleaned and removed for one time window.
 
@@ -244,7 +280,7 @@ def render_trace_plots(
         (one row of it).
     colour : bool
         False gives plain text (for ``NO_COLOR`` terminals).
-    regions : tuple of Region
+    regions : Regions
         Flagged stretches, turned into a per-column flag strip.
 
     Returns
@@ -295,24 +331,30 @@ def render_trace_plots(
     return TracePlots(x_low, x_high, tuple(plots), ratio, strip, columns)
 
 
-_SEVERITY_RANK = {"": 0, "warn": 1, "fail": 2}
+def flag_strip(regions: Regions, x_low: float, x_high: float, columns: int) -> tuple[str, ...]:
+    """Per canvas column, the worst severity (``""``, ``warn``, ``fail``) of the regions it overlaps.
 
-
-def flag_strip(regions, x_low: float, x_high: float, columns: int) -> tuple[str, ...]:
-    """Per canvas column, the worst severity of the flagged regions it overlaps."""
-    strip = [""] * columns
+    Vectorised: each severity level marks its columns with a difference array
+    (+1 at a region's first column, -1 after its last) and a cumulative sum.
+    """
     span = x_high - x_low
-    if span <= 0:
-        return tuple(strip)
-    for region in regions:
-        if region.end_s < x_low or region.start_s > x_high:
-            continue
-        first = int(math.floor((max(region.start_s, x_low) - x_low) / span * (columns - 1)))
-        last = int(math.ceil((min(region.end_s, x_high) - x_low) / span * (columns - 1)))
-        for col in range(max(first, 0), min(last, columns - 1) + 1):
-            if _SEVERITY_RANK.get(region.severity, 0) > _SEVERITY_RANK[strip[col]]:
-                strip[col] = region.severity
-    return tuple(strip)
+    if span <= 0 or len(regions) == 0:
+        return ("",) * columns
+    inside = (regions.end_s >= x_low) & (regions.start_s <= x_high)
+    scale = (columns - 1) / span
+    first = np.floor((np.maximum(regions.start_s[inside], x_low) - x_low) * scale).astype(np.int64)
+    last = np.ceil((np.minimum(regions.end_s[inside], x_high) - x_low) * scale).astype(np.int64)
+    first = np.clip(first, 0, columns - 1)
+    last = np.clip(last, first, columns - 1)
+    codes = regions.code[inside]
+    worst = np.zeros(columns, dtype=np.int8)
+    for level in (1, 2):
+        chosen = codes == level
+        marks = np.zeros(columns + 1, dtype=np.int64)
+        np.add.at(marks, first[chosen], 1)
+        np.add.at(marks, last[chosen] + 1, -1)
+        worst[np.cumsum(marks[:-1]) > 0] = level
+    return tuple(_SEVERITY_NAMES[c] for c in worst)
 
 
 def render_beat_overlay(

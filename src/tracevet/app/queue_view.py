@@ -13,7 +13,7 @@ import numpy as np
 from rich.text import Text
 
 from tracevet.app.display import SEVERITY_RANK, inert_text, severity_key
-from tracevet.app.plots import Region, TracePyramids
+from tracevet.app.plots import Regions, TracePyramids
 
 # States of tracevet.workqueue records, as the worklist groups them.
 DECIDED_STATES = ("accepted", "rejected", "sent-back")
@@ -138,6 +138,7 @@ class RunData:
     cleaned: object
     assessment: object
     pyramids: dict = field(default_factory=dict)
+    regions: dict = field(default_factory=dict)
 
     @property
     def run_id(self) -> str:
@@ -187,35 +188,25 @@ def _channel_beats(assessment, channel: int):
     return channels[channel] if 0 <= channel < len(channels) else None
 
 
-def flagged_regions(assessment, channel: int) -> tuple[Region, ...]:
-    """Flagged beats and stretches of one channel as plot regions, with their flag's severity."""
-    beats = _channel_beats(assessment, channel)
+def flagged_regions(run: "RunData", channel: int) -> Regions:
+    """Flagged beats and stretches of one channel, with their flag's severity (cached per run)."""
+    if channel in run.regions:
+        return run.regions[channel]
+    beats = _channel_beats(run.assessment, channel)
     if beats is None:
-        return ()
+        run.regions[channel] = Regions.from_items([])
+        return run.regions[channel]
     name = beats.channel
     severities: dict[str, str] = {}
-    for flag in flag_list(assessment):
+    for flag in flag_list(run.assessment):
         if getattr(flag, "channel", name) not in (name, None, ""):
             continue
         if SEVERITY_RANK[severity_key(flag.severity)] > SEVERITY_RANK[severity_key(severities.get(flag.id))]:
             severities[flag.id] = flag.severity
-    regions = [
-        Region(float(start), float(end), severity_key(severities.get(str(flag_id), "warn")))
-        for start, end, flag_id in beats.regions
-    ]
-    return tuple(sorted(regions, key=lambda r: r.start_s))
-
-
-def next_region_start(regions: tuple[Region, ...], after_s: float, backwards: bool = False) -> float | None:
-    """Start of the next flagged region after ``after_s`` (or the previous one before it)."""
-    starts = np.array([r.start_s for r in regions])
-    if starts.size == 0:
-        return None
-    if backwards:
-        earlier = starts[starts < after_s - 1e-9]
-        return float(earlier.max()) if earlier.size else None
-    later = starts[starts > after_s + 1e-9]
-    return float(later.min()) if later.size else None
+    run.regions[channel] = Regions.from_items(
+        (start, end, severities.get(str(flag_id), "warn")) for start, end, flag_id in beats.regions
+    )
+    return run.regions[channel]
 
 
 def beat_templates(assessment, channel: int):

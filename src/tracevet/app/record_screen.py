@@ -227,7 +227,7 @@ class RecordScreen(Screen):
         traces = run.pyramids[self.channel]
         self.span_s = min(max(self.span_s, MIN_SPAN_S), traces.duration_s)
         self.start_s = min(max(self.start_s, 0.0), max(traces.duration_s - self.span_s, 0.0))
-        regions = queue_view.flagged_regions(run.assessment, self.channel)
+        regions = queue_view.flagged_regions(run, self.channel)
         plots = render_trace_plots(traces, self.start_s, self.span_s, width, heights, self.app.colour, regions)
         self.last_plots = plots
         for plot, height in zip(plots.plots, heights):
@@ -357,11 +357,11 @@ class RecordScreen(Screen):
         run = self.shown_run
         if run is None:
             return
-        regions = queue_view.flagged_regions(run.assessment, self.channel)
+        regions = queue_view.flagged_regions(run, self.channel)
         centre = self.start_s + self.span_s / 2
-        target = queue_view.next_region_start(regions, centre, backwards)
+        target = regions.next_start(centre, backwards)
         if target is None:
-            self.notify("no further flagged region in this channel" if regions else "no flagged regions in this channel")
+            self.notify("no further flagged region in this channel" if len(regions) else "no flagged regions in this channel")
             return
         self.view = "traces"
         self.start_s = target - self.span_s / 2
