@@ -52,7 +52,7 @@ class WorklistScreen(Screen):
     def on_mount(self) -> None:
         """Set the columns and fill the table."""
         table = self.query_one(DataTable)
-        table.add_column("record", key="id", width=18)
+        table.add_column("record", key="id", width=20)
         table.add_column("state", key="state", width=10)
         table.add_column("length", key="duration", width=7)
         table.add_column("ch", key="channels", width=2)
@@ -81,7 +81,7 @@ class WorklistScreen(Screen):
         table.clear()
         for record in rows:
             table.add_row(
-                inert_text(record.id, 18),
+                inert_text(record.id, 20),
                 inert_text(record.state, 10),
                 Text(format_duration(record.duration_s)),
                 Text(str(record.n_channels)),
