@@ -31,9 +31,10 @@ class ProgressBar:
         self.started = time.monotonic()
         self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
         self._last_tenth = -1
+        self._last_draw = 0.0
 
-    def line(self, done: int, total: int) -> str:
-        """The bar as text for ``done`` of ``total``."""
+    def line(self, done: float, total: int) -> str:
+        """The bar as text for ``done`` (may be fractional) of ``total``."""
         fraction = 1.0 if total == 0 else min(1.0, done / total)
         filled = int(round(fraction * self.width))
         elapsed = time.monotonic() - self.started
@@ -43,19 +44,22 @@ class ProgressBar:
             tail = f"done in {_duration(elapsed)}"
         else:
             tail = ""
-        return f"{self.label} [{'#' * filled}{'-' * (self.width - filled)}] {done}/{total} {fraction * 100:3.0f}%  {tail}".rstrip()
+        return f"{self.label} [{'#' * filled}{'-' * (self.width - filled)}] {int(done)}/{total} {fraction * 100:3.0f}%  {tail}".rstrip()
 
-    def update(self, done: int, total: int) -> None:
-        """Show progress ``done`` of ``total``."""
-        text = self.line(done, total)
+    def update(self, done: float, total: int) -> None:
+        """Show progress ``done`` of ``total`` (at most ten redraws a second on a terminal)."""
         if self.tty:
-            self.stream.write("\r" + text + ("\n" if done >= total else ""))
+            now = time.monotonic()
+            if done < total and now - self._last_draw < 0.1:
+                return
+            self._last_draw = now
+            self.stream.write("\r" + self.line(done, total) + ("\n" if done >= total else ""))
             self.stream.flush()
             return
         tenth = 10 if total == 0 else int(10 * done / total)
         if tenth != self._last_tenth:
             self._last_tenth = tenth
-            self.stream.write(text + "\n")
+            self.stream.write(self.line(done, total) + "\n")
             self.stream.flush()
 
     def message(self, text: str) -> None:

@@ -12,7 +12,9 @@ that died are swept first. Only one batch runs on a queue at a time.
 
 from __future__ import annotations
 
+import multiprocessing
 import os
+import queue as queue_module
 import time
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from dataclasses import dataclass
@@ -66,17 +68,56 @@ def waiting(queue) -> list[tuple[str, dict | None]]:
     return todo
 
 
-def clean_one(root: str, record_id: str, settings: dict) -> CleanOutcome:
-    """Clean and assess one record of the queue at ``root`` (runs in a worker process)."""
+# Set in each worker process: where to send (record id, fraction) while a record is cleaned.
+_PROGRESS_QUEUE = None
+_CLEANING_SHARE = 0.8  # share of a record's progress given to cleaning (the rest: assessment, writing)
+
+
+def _init_worker(progress_queue) -> None:
+    global _PROGRESS_QUEUE
+    _PROGRESS_QUEUE = progress_queue
+
+
+def _reporter(record_id: str, sink: Callable[[str, float], None] | None) -> Callable[[float], None] | None:
+    """A progress callback for the engine that forwards at most every 0.2 s."""
+    if sink is None:
+        return None
+    last = [0.0]
+
+    def report(fraction: float) -> None:
+        now = time.monotonic()
+        if now - last[0] >= 0.2:
+            last[0] = now
+            sink(record_id, _CLEANING_SHARE * float(fraction))
+
+    return report
+
+
+def _queue_sink(record_id: str, fraction: float) -> None:
+    try:
+        _PROGRESS_QUEUE.put_nowait((record_id, fraction))
+    except Exception:  # progress is a nicety; never fail a record over it
+        pass
+
+
+def clean_one(root: str, record_id: str, settings: dict, sink: Callable[[str, float], None] | None = None) -> CleanOutcome:
+    """Clean and assess one record of the queue at ``root`` (runs in a worker process).
+
+    ``sink(record_id, fraction)`` receives progress within the record; in a
+    worker process started by :func:`clean_waiting` it defaults to the
+    batch's progress channel.
+    """
     from tracevet.assessment import assess
     from tracevet.cleaning import CleaningSettings, clean
     from tracevet.workqueue.queue import Queue
 
+    if sink is None and _PROGRESS_QUEUE is not None:
+        sink = _queue_sink
     try:
         queue = Queue.open(root)
         chosen = CleaningSettings.from_dict(settings, source=f"{record_id}: settings")
         original = queue.load_original(record_id)
-        cleaned = clean(original, chosen)
+        cleaned = clean(original, chosen, progress=_reporter(record_id, sink))
         assessment = assess(original, cleaned, limits=queue.settings.limits())
         run_id = queue.store_run(record_id, cleaned, assessment, chosen, update_index=False)
         return CleanOutcome(record_id, run_id, assessment.worst_severity, len(assessment.flags))
@@ -86,6 +127,18 @@ def clean_one(root: str, record_id: str, settings: dict) -> CleanOutcome:
         return CleanOutcome(record_id, error="not enough memory to clean this record")
     except Exception as exc:  # one bad record must not stop the batch; reported per record
         return CleanOutcome(record_id, error=f"internal error ({type(exc).__name__}: {inert(exc, 160)})")
+
+
+def _drain(channel, part: Callable[[str, float], None]) -> None:
+    """Pass on every progress message waiting in ``channel``."""
+    while True:
+        try:
+            record_id, fraction = channel.get_nowait()
+        except queue_module.Empty:
+            return
+        except (OSError, ValueError, EOFError):
+            return
+        part(record_id, fraction)
 
 
 def clean_waiting(
@@ -105,7 +158,10 @@ def clean_waiting(
         ``key=value`` changes to the queue's cleaning settings (not applied to
         re-runs that asked for their own settings).
     progress : callable(done, total, outcome), optional
-        Called once with ``(0, total, None)`` and after every record.
+        Called with ``(0, total, None)`` first, with ``(done, total, outcome)``
+        after every record, and in between with a fractional ``done``
+        (records finished plus the parts of those being cleaned) and
+        ``outcome`` None.
 
     Raises
     ------
@@ -129,6 +185,7 @@ def clean_waiting(
         if total == 0:
             return outcomes
         pending_index: list[str] = []
+        partial: dict[str, float] = {}  # record id -> fraction done, for records being cleaned
         last_flush = time.monotonic()
 
         def finished(outcome: CleanOutcome) -> None:
@@ -141,24 +198,39 @@ def clean_waiting(
                 pending_index.clear()
                 last_flush = time.monotonic()
             if progress:
-                progress(len(outcomes), total, outcome)
+                progress(len(outcomes) + sum(partial.values()), total, outcome)
+
+        def part(record_id: str, fraction: float) -> None:
+            partial[record_id] = fraction
+            if progress:
+                progress(len(outcomes) + sum(partial.values()), total, None)
 
         try:
             if workers == 1 or total == 1:
                 for record_id, settings in todo:
-                    finished(clean_one(str(queue.root), record_id, settings))
+                    outcome = clean_one(str(queue.root), record_id, settings, sink=part)
+                    partial.pop(record_id, None)
+                    finished(outcome)
             else:
-                with ProcessPoolExecutor(max_workers=min(workers, total)) as pool:
-                    futures: set[Future] = {pool.submit(clean_one, str(queue.root), r, s) for r, s in todo}
+                context = multiprocessing.get_context()
+                channel = context.Queue()
+                with ProcessPoolExecutor(
+                    max_workers=min(workers, total), mp_context=context, initializer=_init_worker, initargs=(channel,)
+                ) as pool:
+                    futures: dict[Future, str] = {pool.submit(clean_one, str(queue.root), r, s): r for r, s in todo}
+                    waiting_on = set(futures)
                     try:
-                        while futures:
-                            done, futures = wait(futures, return_when=FIRST_COMPLETED)
+                        while waiting_on:
+                            done, waiting_on = wait(waiting_on, timeout=0.25, return_when=FIRST_COMPLETED)
+                            _drain(channel, part)
                             for future in done:
+                                partial.pop(futures[future], None)
                                 finished(future.result())
                     except BaseException:
-                        for future in futures:
+                        for future in waiting_on:
                             future.cancel()
                         raise
+                channel.close()
         finally:
             if pending_index:
                 queue.refresh_index(pending_index)
