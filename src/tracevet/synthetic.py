@@ -384,8 +384,8 @@ def _synthesise(duration_s, fs, heart_rate_bpm, hrv_std_bpm, lf_hf_ratio, ectopi
     params = _beat_parameters(is_v, normal, ectopic, heart_rate_bpm)
     z = _model(duration_s, fs, times, omega, params)
     n = z.size
-    inside = (times >= 0) & (np.rint(times * fs) < n)
-    r_idx = np.rint(times[inside] * fs).astype(np.int64)
+    inside = (times >= 0) & (times * fs <= n - 0.5)
+    r_idx = np.minimum(np.rint(times[inside] * fs).astype(np.int64), n - 1)
     labels = np.where(is_v[inside], "V", "N")
     # Scale: isoelectric line at 0, median normal R peak at ``amplitude``. The
     # reference code instead maps min..max to -0.4..1.2 mV (R about 1 mV above baseline).

@@ -1,0 +1,1 @@
+"""Fidelity assessment: beat detection, beat templates, shape measures and distortion flags."""
