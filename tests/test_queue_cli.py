@@ -89,12 +89,21 @@ def test_claims_from_the_command_line(run_cli, tmp_path):
 
 def test_hostile_notes_and_names_are_displayed_inert(run_cli, tmp_path):
     queue, ids = queue_with_runs(tmp_path)
-    note = "\x1b[2J\x1b]0;pwned\x07[red]x[/red]"
+    note = "\x1b[2J\x1b]0;pwned\x07[red]x[/red] \x9b31m \u202eevil"
     code, out, err = run_cli("decide", queue.root, ids[0], "reject", "--note", note, "--reviewer", "eve\x1b[5m")
     assert code == 0 and "\x1b" not in out + err
-    for args in (("log", queue.root), ("log", queue.root, "--record", ids[0]), ("status", queue.root, "--list")):
+    for args in (
+        ("log", queue.root),
+        ("log", queue.root, "--record", ids[0]),
+        ("log", queue.root, "--json"),
+        ("status", queue.root, "--list"),
+        ("status", queue.root, "--json"),
+    ):
         code, out, err = run_cli(*args)
-        assert code == 0 and "\x1b" not in out + err and "\x07" not in out
+        assert code == 0
+        for raw in ("\x1b", "\x07", "\x9b", "\u202e"):
+            assert raw not in out + err, (args, raw)
+    assert queue.paths.log.read_bytes().isascii()  # safe to cat
     code, out, _ = run_cli("log", queue.root)
     assert "\\x1b[2J" in out and "[red]x[/red]" in out
     assert queue.log_entries(ids[0])[-1].note == note

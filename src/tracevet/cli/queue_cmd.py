@@ -249,7 +249,7 @@ def cmd_status(args) -> int:
                 for r in records
             ],
         }
-        json.dump(document, sys.stdout, ensure_ascii=False)
+        json.dump(document, sys.stdout)
         sys.stdout.write("\n")
         return 0
     print(f"queue {inert(queue.root)}: {len(records)} record(s)")
@@ -286,7 +286,7 @@ def cmd_decide(args) -> int:
         raise InputError("--set/--profile", "settings go with a 'rerun' decision only")
     entry = queue.decide(args.record, args.decision, args.note, _reviewer(args), run_id=args.run, requested_settings=requested)
     if args.json:
-        print(json.dumps(entry.data, ensure_ascii=False))
+        print(json.dumps(entry.data))
         return 0
     word = {"accept": "accepted", "reject": "rejected", "rerun": "sent back for a re-run"}[entry.decision]
     print(f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} (log entry {entry.seq}, hash {entry.hash[:16]})")
@@ -337,7 +337,7 @@ def cmd_log(args) -> int:
         errors = [p for p in problems if not p.repaired]
         head = head_summary(queue)
         if args.json:
-            print(json.dumps({"ok": not errors, "problems": [p.to_dict() for p in problems], "head": head}, ensure_ascii=False))
+            print(json.dumps({"ok": not errors, "problems": [p.to_dict() for p in problems], "head": head}))
         else:
             for problem in problems:
                 print(inert(str(problem)))
@@ -360,7 +360,7 @@ def cmd_log(args) -> int:
         record = check_record_id(args.record, "--record")
     entries = queue.log_entries(record)
     if args.json:
-        json.dump([e.data for e in entries], sys.stdout, ensure_ascii=False)
+        json.dump([e.data for e in entries], sys.stdout)
         sys.stdout.write("\n")
         return 0
     if not entries:

@@ -1,9 +1,10 @@
 """SHA-256 checksums of files and canonical JSON (FIPS PUB 180-4).
 
 Canonical JSON here means: keys sorted, no insignificant white space,
-UTF-8, non-ASCII kept as is (``json.dumps(..., sort_keys=True,
-separators=(",", ":"), ensure_ascii=False)``), so the same content always
-gives the same bytes and the same hash.
+pure ASCII with every other character as a ``\\uXXXX`` escape
+(``json.dumps(..., sort_keys=True, separators=(",", ":"))``), so the same
+content always gives the same bytes and the same hash, and a log file shown
+with ``cat`` can never carry a terminal escape sequence.
 """
 
 from __future__ import annotations
@@ -33,8 +34,8 @@ def sha256_bytes(data: bytes) -> str:
 
 
 def canonical_json(value: object) -> bytes:
-    """``value`` as canonical JSON bytes (sorted keys, compact, UTF-8)."""
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False).encode("utf-8")
+    """``value`` as canonical JSON bytes (sorted keys, compact, ASCII)."""
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), allow_nan=False).encode("ascii")
 
 
 def sha256_json(value: object) -> str:

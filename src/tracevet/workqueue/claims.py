@@ -190,7 +190,7 @@ def _write(paths: QueuePaths, claim: Claim) -> None:
     paths.claims.mkdir(exist_ok=True)
     target = paths.claim_file(claim.record)
     temporary = target.with_name(f".{target.name}.{os.getpid()}.tmp")
-    temporary.write_text(json.dumps(claim.to_dict(), ensure_ascii=False) + "\n", encoding="utf-8")
+    temporary.write_text(json.dumps(claim.to_dict()) + "\n", encoding="utf-8")
     os.replace(temporary, target)
 
 

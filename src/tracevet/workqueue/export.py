@@ -15,9 +15,10 @@ The destination folder receives, for every record whose latest decision is
 Before copying, each cleaned file's checksum is compared with the one in
 its run and in the decision entry; any mismatch stops the export. The
 folder is assembled beside the destination and renamed into place whole.
-In ``manifest.csv`` a cell starting with ``=``, ``+``, ``-`` or ``@`` gets
-a leading apostrophe so spreadsheets do not run it as a formula (the JSON
-manifest holds the text exactly as given).
+In ``manifest.csv`` notes, names and reviewers are shown inert (control
+characters made visible) and a cell starting with ``=``, ``+``, ``-`` or
+``@`` gets a leading apostrophe so spreadsheets do not run it as a formula;
+``manifest.json`` holds the text exactly as given.
 """
 
 from __future__ import annotations
@@ -122,7 +123,7 @@ def export_accepted(queue, dest: str | os.PathLike, exported_by: str | None = No
             "log_head": head,
             "records": rows,
         }
-        write_text_atomic(staging / "manifest.json", json.dumps(manifest, indent=2, ensure_ascii=False) + "\n")
+        write_text_atomic(staging / "manifest.json", json.dumps(manifest, indent=2) + "\n")
         write_text_atomic(staging / "manifest.csv", _csv(rows))
         write_text_atomic(staging / "sign-off.txt", _report(manifest))
         if dest.exists():
@@ -143,6 +144,8 @@ def _csv(rows: list[dict]) -> str:
     for row in rows:
         values = dict(row)
         values["flags"] = " ".join(f"{f['id']}:{f['severity']}" for f in row["flags"])
+        for key in ("note", "source_name", "reviewer"):
+            values[key] = inert(values[key])  # the exact text is in manifest.json
         writer.writerow([_formula_safe(values.get(c)) for c in CSV_COLUMNS])
     return buffer.getvalue()
 

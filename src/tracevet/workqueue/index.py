@@ -253,7 +253,7 @@ class Index:
             return
         lines = [json.dumps({"id": r, "removed": True, "log_size": self.log_size}) for r in sorted(self.removed)]
         lines += [
-            json.dumps({"id": r, "summary": self.records[r], "log_size": self.log_size}, ensure_ascii=False)
+            json.dumps({"id": r, "summary": self.records[r], "log_size": self.log_size})
             for r in sorted(self.dirty)
             if r in self.records
         ]
@@ -269,7 +269,7 @@ class Index:
 
     def write_snapshot(self, paths: QueuePaths) -> None:
         """Write ``index.json`` whole and empty the journal (queue lock held)."""
-        text = json.dumps({"version": INDEX_VERSION, "log_size": self.log_size, "records": self.records}, ensure_ascii=False)
+        text = json.dumps({"version": INDEX_VERSION, "log_size": self.log_size, "records": self.records})
         write_text_atomic(paths.index, text)
         write_text_atomic(paths.journal, json.dumps({"base": True, "log_size": self.log_size}) + "\n")
         self.snapshot_bytes = len(text)
@@ -316,7 +316,7 @@ def update(paths: QueuePaths, summaries: list[dict], log_size_before: int) -> No
             log_size = paths.log.stat().st_size
         except FileNotFoundError:
             log_size = 0
-        lines = [json.dumps({"id": s["id"], "summary": s, "log_size": log_size}, ensure_ascii=False) for s in summaries]
+        lines = [json.dumps({"id": s["id"], "summary": s, "log_size": log_size}) for s in summaries]
         fd = os.open(str(paths.journal), os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
         try:
             os.write(fd, ("\n".join(lines) + "\n").encode("utf-8"))

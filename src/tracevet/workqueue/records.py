@@ -148,7 +148,7 @@ def stage_original(
 def commit_staged(paths: QueuePaths, staged: StagedRecord, record_id: str) -> None:
     """Give a staged record its id and rename it into ``records/``; caller holds the lock."""
     staged.meta["id"] = record_id
-    write_text_atomic(staged.folder / RECORD_META, json.dumps(staged.meta, indent=2, ensure_ascii=False) + "\n")
+    write_text_atomic(staged.folder / RECORD_META, json.dumps(staged.meta, indent=2) + "\n")
     paths.records.mkdir(exist_ok=True)
     os.rename(staged.folder, paths.record_dir(record_id))
     fsync_dir(paths.records)

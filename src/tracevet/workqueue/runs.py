@@ -163,7 +163,7 @@ def write_run_meta(folder: Path, meta: dict) -> None:
     target = folder / RUN_META
     if target.exists():
         os.chmod(target, 0o644)
-    write_text_atomic(target, json.dumps(meta, indent=2, ensure_ascii=False) + "\n", mode=READ_ONLY)
+    write_text_atomic(target, json.dumps(meta, indent=2) + "\n", mode=READ_ONLY)
 
 
 def list_runs(paths: QueuePaths, record_id: str) -> list[str]:

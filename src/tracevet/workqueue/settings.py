@@ -93,7 +93,7 @@ class QueueSettings:
     def to_text(self) -> str:
         """The settings as commented YAML, as ``init`` writes them."""
         def dump(value) -> str:
-            return yaml.safe_dump(value, sort_keys=False, allow_unicode=True, default_flow_style=False).rstrip("\n")
+            return yaml.safe_dump(value, sort_keys=False, allow_unicode=False, default_flow_style=False).rstrip("\n")
 
         lines = [
             "# tracevet work queue settings (see README, 'The work queue').",
