@@ -2,7 +2,7 @@
 
 For 1 minute, 1 hour and 24 hours of one channel at 360 Hz (float32, the
 MIT-BIH excerpt in tests/data repeated, plus white noise), prints samples per
-second (best of ``--repeat`` runs) and peak memory (tracemalloc, in a
+second (best of ``--repeat`` interleaved rounds; 1-minute calls timed 20 at a time) and peak memory (tracemalloc, in a
 separate run, as a multiple of the record's float32 size) of:
 
 - ``default``: the default profile (SWT, hybrid SURE, garrote, 0.05 Hz
@@ -67,19 +67,21 @@ def bare_swt(x: np.ndarray, wavelet: str, level: int) -> np.ndarray:
     return pywt.iswt(coeffs, wavelet)[: x.size]
 
 
-def timed_round_robin(funcs: dict, repeat: int) -> dict:
-    """Best wall time of ``repeat`` calls of each function, calls interleaved.
+def timed_round_robin(funcs: dict, repeat: int, inner: int = 1) -> dict:
+    """Best wall time per call over ``repeat`` rounds of ``inner`` calls each, interleaved.
 
     Interleaving makes every pipeline see the same machine load (other
-    processes, CPU frequency), so the ratios are fair.
+    processes, CPU frequency), so the ratios are fair; ``inner`` > 1 averages
+    calls too short to time one by one.
     """
     best = {name: math.inf for name in funcs}
     for _ in range(repeat):
         for name, func in funcs.items():
             gc.collect()
             start = time.perf_counter()
-            func()
-            best[name] = min(best[name], time.perf_counter() - start)
+            for _ in range(inner):
+                func()
+            best[name] = min(best[name], (time.perf_counter() - start) / inner)
     return best
 
 
@@ -119,7 +121,7 @@ def main() -> None:
         }
         size_mb = x.nbytes / 2**20
         print(f"\n{label}: {x.size} samples at {FS:g} Hz, float32 {size_mb:.1f} MiB, {wavelet} level {level}")
-        times = timed_round_robin(runs, repeat)
+        times = timed_round_robin(runs, repeat, inner=20 if seconds <= 60 else 1)
         rates = {}
         for name, func in runs.items():
             seconds_taken = times[name]

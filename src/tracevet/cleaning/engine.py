@@ -32,6 +32,7 @@ from tracevet.cleaning.blocks import DEFAULT_BLOCK_SAMPLES, Block, plan_blocks, 
 from tracevet.cleaning.levels import resolve_level
 from tracevet.cleaning.noise import level_sigmas
 from tracevet.cleaning.settings import CleaningSettings
+from tracevet.errors import SettingsError
 from tracevet.recording.model import Recording
 
 Progress = Callable[[float], None] | None
@@ -86,13 +87,23 @@ def _levels_needed(settings: CleaningSettings, level: int) -> int:
 
 
 class _LevelStatistics:
-    """Evenly spaced coefficients of each detail level of the whole channel, and its peak."""
+    """Evenly spaced coefficient magnitudes of each detail level of the whole channel.
 
-    def __init__(self, n: int, levels: int):
+    A level keeps up to ``STATS_MAX_COEFFS`` magnitudes when its median or
+    mean square is needed (the finest level, every level for ``per_level``
+    noise or BayesShrink), otherwise up to ``SURE_MAX_COEFFS`` (all SURE and
+    the sparsity test need). The positions depend only on the record length,
+    never on the blocks.
+    """
+
+    def __init__(self, n: int, levels: int, settings: CleaningSettings):
         self.n = n
         self.totals = [max(1, n >> j) for j in range(1, levels + 1)]
-        self.strides = [max(1, math.ceil(t / STATS_MAX_COEFFS)) for t in self.totals]
+        full = [j == 1 or settings.noise_estimate == "per_level" or settings.rule == "bayes" for j in range(1, levels + 1)]
+        caps = [STATS_MAX_COEFFS if f else SURE_MAX_COEFFS for f in full]
+        self.strides = [max(1, math.ceil(t / cap)) for t, cap in zip(self.totals, caps)]
         self.parts: list[list[np.ndarray]] = [[] for _ in range(levels)]
+        self.want_peaks = settings.rule == "bayes"
         self.peaks = [0.0] * levels
 
     def add(self, details: list[np.ndarray], block) -> None:
@@ -105,15 +116,16 @@ class _LevelStatistics:
             if hi <= lo:
                 continue
             core = d[lo:hi]
-            self.peaks[j - 1] = max(self.peaks[j - 1], float(np.max(np.abs(core))))
+            if self.want_peaks:
+                self.peaks[j - 1] = max(self.peaks[j - 1], float(np.max(np.abs(core))))
             stride = self.strides[j - 1]
             first = (-(lo + (block.start >> j))) % stride
             self.parts[j - 1].append(np.abs(core[first::stride]))
 
     def thresholds(self, settings: CleaningSettings, level: int) -> list[float]:
         """Thresholds in signal units for detail levels 1..level (finest first)."""
-        mags = [np.concatenate(p) if p else np.zeros(1, dtype=np.float32) for p in self.parts]
-        # The magnitudes may be reordered only when no later rule needs them.
+        mags = [(p[0] if len(p) == 1 else np.concatenate(p)) if p else np.zeros(1, dtype=np.float32) for p in self.parts]
+        # The magnitudes may be reordered in place only when no later rule needs them.
         reorder = settings.rule in ("universal", "minimax")
         sigmas = level_sigmas(mags, settings.noise_estimate, magnitudes=reorder)
         if len(sigmas) < level:  # finest estimate for every level
@@ -128,6 +140,8 @@ class _LevelStatistics:
                 lams.append(thresholds.universal_threshold(n, sigma))
             elif settings.rule == "minimax":
                 lams.append(sigma * thresholds.minimax_threshold(n))
+            elif settings.rule == "bayes":
+                lams.append(thresholds.bayes_threshold(mags[j - 1], sigma, max_abs=self.peaks[j - 1]))
             else:
                 d = mags[j - 1]
                 if d.size > SURE_MAX_COEFFS:  # evenly spaced subsample for the sort
@@ -138,8 +152,6 @@ class _LevelStatistics:
                     lams.append(sigma * thresholds.sure_threshold(d / sigma, upper=upper))
                 elif settings.rule == "hybrid":
                     lams.append(sigma * thresholds.hybrid_sure_threshold(d / sigma, n_level=d_level))
-                elif settings.rule == "bayes":
-                    lams.append(thresholds.bayes_threshold(mags[j - 1], sigma, max_abs=self.peaks[j - 1]))
                 else:  # guarded by CleaningSettings validation
                     raise ValueError(f"unknown rule {settings.rule!r}")
         return lams
@@ -168,7 +180,7 @@ def level_thresholds(
     n = buf.shape[0]
     wavelet = shrinkage.as_wavelet(settings.wavelet)
     levels = _levels_needed(settings, level)
-    stats = _LevelStatistics(n, levels)
+    stats = _LevelStatistics(n, levels, settings)
     for block in plan_blocks(n, block_samples, _wavelet_overlap(wavelet, level), 1 << level):
         stats.add(_stats_details(buf[block.start : block.stop], settings, levels, wavelet), block)
     return stats.thresholds(settings, level)
@@ -179,7 +191,7 @@ def _dwt_single_block(buf: np.ndarray, settings: CleaningSettings, level: int) -
     n = buf.shape[0]
     coeffs = pywt.wavedec(buf, settings.wavelet, mode=settings.extension, level=level)
     levels = _levels_needed(settings, level)
-    stats = _LevelStatistics(n, levels)
+    stats = _LevelStatistics(n, levels, settings)
     stats.add(coeffs[:0:-1][:levels], Block(0, n, 0, n))
     lams = stats.thresholds(settings, level)
     for j, lam in enumerate(lams, start=1):
@@ -288,6 +300,10 @@ def clean(
     n, n_channels = samples.shape
     dtype = _work_dtype(samples)
     resolve_level(settings, recording.fs, n, settings.wavelet, source=recording.source)
+    try:
+        filters.stage_filters(recording.fs, settings)
+    except SettingsError as exc:
+        raise SettingsError(recording.source, f"{exc.source} {exc.problem}") from None
     result = np.empty((n, n_channels), dtype=dtype)
     for c in range(n_channels):
         sub = None

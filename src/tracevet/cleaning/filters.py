@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 from scipy import signal
@@ -76,12 +77,22 @@ def zero_phase(x: np.ndarray, sos: np.ndarray, fs: float, lowest_hz: float) -> n
 
 
 def stage_filters(fs: float, settings) -> list[tuple[np.ndarray, float]]:
-    """The filters ``settings`` asks for, as ``(sos, lowest corner Hz)`` pairs, in order."""
+    """The filters ``settings`` asks for, as ``(sos, lowest corner Hz)`` pairs, in order.
+
+    Designs are cached per rate and settings (the arrays are shared: do not modify them).
+    """
+    return list(
+        _stage_filters(float(fs), settings.baseline, settings.baseline_cutoff_hz, settings.mains, settings.mains_harmonics)
+    )
+
+
+@lru_cache(maxsize=64)
+def _stage_filters(fs: float, baseline: str, cutoff_hz: float, mains: str, harmonics: int) -> tuple:
     stages = []
-    if settings.baseline == "butterworth":
-        stages.append((baseline_sos(fs, settings.baseline_cutoff_hz), settings.baseline_cutoff_hz))
-    if settings.mains != "off":
-        sos = mains_sos(fs, float(settings.mains), settings.mains_harmonics)
+    if baseline == "butterworth":
+        stages.append((baseline_sos(fs, cutoff_hz), cutoff_hz))
+    if mains != "off":
+        sos = mains_sos(fs, float(mains), harmonics)
         if sos is not None:
             stages.append((sos, MAINS_BANDWIDTH_HZ))
-    return stages
+    return tuple(stages)

@@ -117,16 +117,15 @@ def swt_forward(x: np.ndarray, wavelet: str, level: int) -> tuple[np.ndarray, li
     """
     rows = x.reshape(1, -1)
     details = []
+    scratch = np.empty(2 * x.shape[0], dtype=x.dtype)  # reused: both phases of every row
     for _ in range(level):
         count, length = rows.shape
-        # both decimation phases of every row: the rows, then the rows shifted by one
-        stacked = np.empty((2 * count, length), dtype=rows.dtype)
+        stacked = scratch.reshape(2 * count, length)
         stacked[:count] = rows
         stacked[count:, :-1] = rows[:, 1:]
         stacked[count:, -1] = rows[:, 0]
         rows, detail = pywt.dwt(stacked, wavelet, mode="periodization", axis=-1)
         details.append(detail)
-        del stacked
     return rows, details
 
 

@@ -208,6 +208,9 @@ def minimax_threshold(n: int) -> float:
     so it removes less: for heart recordings an error towards keeping QRS
     amplitude is the safer side.
 
+    The threshold is defined for soft thresholding; with the hard or
+    garrote mode the engine applies the same value.
+
     Parameters
     ----------
     n : int
@@ -241,11 +244,11 @@ def bayes_threshold(coeffs: np.ndarray, sigma: float, max_abs: float | None = No
     max_abs : float, optional
         Largest ``|Y|`` of the whole subband, when ``coeffs`` is a subsample.
     """
-    y = np.asarray(coeffs, dtype=np.float64).ravel()
+    y = np.asarray(coeffs).ravel()
     if y.size == 0:
         return 0.0
     peak = float(np.max(np.abs(y))) if max_abs is None else float(max_abs)
-    var_y = float(np.mean(np.square(y)))
+    var_y = float(np.einsum("i,i->", y, y, dtype=np.float64)) / y.size
     var_x = var_y - float(sigma) ** 2
     if var_x <= 0.0:
         # Whole subband removed: just above the largest magnitude, so that
