@@ -38,6 +38,8 @@ _REFINE_S = 0.09
 # No R peak is reported this close to either end of the record: the QRS is cut
 # there and its extremum cannot be told from a filter edge effect.
 _EDGE_S = 0.05
+# Samples per chunk of a long record (memory bound), see _candidates.
+_CHUNK_SAMPLES = 1 << 21
 
 
 @dataclass(frozen=True)
@@ -254,31 +256,37 @@ def _noise_only_blocks(candidates, values, chosen, fs, n_samples) -> np.ndarray:
     return noisy_block[blk[chosen]]
 
 
-def _refine(positions, refined, fs):
-    """Move each detection to the R extremum of the 0.5-45 Hz signal within +-90 ms.
+def _extrema(positions, refined, fs):
+    """Largest and smallest sample of the 0.5-45 Hz signal within +-90 ms of each position.
 
-    Excursions are measured from the beat's baseline, the median of the signal
-    over +-300 ms (mostly PR, ST and TP segments). Polarity: the record's
-    dominant QRS polarity (median over beats of the larger excursion) is used,
-    unless a beat's opposite excursion is more than 1.5 times larger (e.g. a
-    ventricular ectopic of inverted shape); this keeps one fiducial per shape.
+    Returns (index of max, index of min, upward excursion, downward excursion);
+    excursions are measured from the beat's baseline, the median of the signal
+    over +-300 ms (mostly PR, ST and TP segments).
     """
     half = max(1, int(round(_REFINE_S * fs)))
     wide = max(half + 1, int(round(0.3 * fs)))
     n = refined.size
     idx = np.clip(positions[:, None] + np.arange(-half, half + 1), 0, n - 1)
     win = refined[idx]
-    base = np.empty(positions.size)
-    for start in range(0, positions.size, 4096):  # bounded memory for long records
-        p = positions[start : start + 4096]
-        wide_idx = np.clip(p[:, None] + np.arange(-wide, wide + 1, max(1, wide // 60)), 0, n - 1)
-        base[start : start + 4096] = np.median(refined[wide_idx], axis=1)
-    up = win.max(axis=1) - base
-    down = base - win.min(axis=1)
+    wide_idx = np.clip(positions[:, None] + np.arange(-wide, wide + 1, max(1, wide // 60)), 0, n - 1)
+    base = np.median(refined[wide_idx], axis=1)
+    rows = np.arange(idx.shape[0])
+    imax = idx[rows, np.argmax(win, axis=1)]
+    imin = idx[rows, np.argmin(win, axis=1)]
+    return imax, imin, refined[imax] - base, base - refined[imin]
+
+
+def _place_on_extremum(imax, imin, up, down):
+    """Choose the R extremum of each beat; return (sample index, excursion).
+
+    Polarity: the record's dominant QRS polarity (median over beats of the
+    larger excursion) is used, unless a beat's opposite excursion is more than
+    1.5 times larger (e.g. a ventricular ectopic of inverted shape); this keeps
+    one fiducial per beat shape.
+    """
     positive = np.median(up - down) >= 0
     use_max = (up * 1.5 >= down) if positive else (up > 1.5 * down)
-    k = np.where(use_max, np.argmax(win, axis=1), np.argmin(win, axis=1))
-    return idx[np.arange(idx.shape[0]), k]
+    return np.where(use_max, imax, imin), np.where(use_max, up, down)
 
 
 def detect_qrs(signal, fs: float) -> np.ndarray:
@@ -299,7 +307,7 @@ def detect_qrs(signal, fs: float) -> np.ndarray:
     from the rejected ones (median ratio under 30, see :func:`_noise_only_blocks`),
     the detections are dropped as noise without beats; a flat line gives no
     candidate at all. Each detection is then placed on the R
-    extremum (either polarity, see :func:`_refine`) of a 0.5-45 Hz zero-phase
+    extremum (either polarity, see :func:`_place_on_extremum`) of a 0.5-45 Hz zero-phase
     version of the input within +-90 ms; none is reported within 50 ms of
     either end of the record (an incomplete QRS); detections that land on the same
     extremum or closer than 200 ms are merged (the larger excursion is kept).
@@ -325,46 +333,67 @@ def detect_qrs(signal, fs: float) -> np.ndarray:
         return np.zeros(0, dtype=np.int64)
     if np.ptp(x) == 0:
         return np.zeros(0, dtype=np.int64)
-    st = _stages(x, fs)
-    mwi = st.integrated
-    if not np.any(mwi > 0):
-        return np.zeros(0, dtype=np.int64)
     refractory = max(1, int(round(_REFRACTORY_S * fs)))
-    # Zero padding lets a maximum at the first or last sample be a candidate.
-    cand, _ = sps.find_peaks(np.concatenate(([0.0], mwi, [0.0])), distance=refractory)
-    cand = cand - 1
+    cand, values, slopes, imax, imin, up, down = _candidates(x, fs, refractory)
     if cand.size == 0:
         return np.zeros(0, dtype=np.int64)
-    values = mwi[cand]
-    # Maximal slope near each candidate, for T-wave discrimination.
-    half = max(1, int(round(0.075 * fs)))
-    absd = np.abs(st.derivative)
-    slopes = maximum_filter1d(absd, size=2 * half + 1, mode="nearest")[cand]
     chosen = _thresholds(cand, values, slopes, fs, x.size)
     if chosen.size:
         chosen = chosen[~_noise_only_blocks(cand, values, chosen, fs, x.size)]
     if chosen.size == 0:
         return np.zeros(0, dtype=np.int64)
-    peaks = _refine(cand[chosen], st.refined, fs)
+    peaks, size = _place_on_extremum(imax[chosen], imin[chosen], up[chosen], down[chosen])
     edge = int(round(_EDGE_S * fs))
-    peaks = peaks[(peaks >= edge) & (peaks < x.size - edge)]
-    return _merge_close(np.sort(peaks), st.refined, refractory)
+    inside = (peaks >= edge) & (peaks < x.size - edge)
+    return _merge_close(peaks[inside], size[inside], refractory)
 
 
-def _merge_close(peaks, refined, min_gap):
-    """Drop duplicates and, of two peaks closer than ``min_gap``, keep the larger excursion."""
-    peaks = np.unique(peaks)
+def _candidates(x, fs, refractory):
+    """Candidate peaks of the integrated signal with their value, slope and R extrema.
+
+    Long records are processed in chunks of about 2 million samples with 5 s of
+    overlap on each side (more than the filters' settling time), so memory stays
+    bounded; candidates are kept only in each chunk's core.
+    """
+    pad = int(5 * fs)
+    core = max(_CHUNK_SAMPLES, 4 * pad)
+    half = max(1, int(round(0.075 * fs)))
+    parts = []
+    for c0 in range(0, x.size, core):
+        c1 = min(x.size, c0 + core)
+        a, b = max(0, c0 - pad), min(x.size, c1 + pad)
+        st = _stages(x[a:b], fs)
+        # Zero padding lets a maximum at the first or last sample be a candidate.
+        pk, _ = sps.find_peaks(np.concatenate(([0.0], st.integrated, [0.0])), distance=refractory)
+        pk = pk - 1
+        pk = pk[(pk + a >= c0) & (pk + a < c1) & (st.integrated[pk] > 0)]
+        if pk.size == 0:
+            continue
+        # Maximal slope near each candidate, for T-wave discrimination.
+        slope = maximum_filter1d(np.abs(st.derivative), size=2 * half + 1, mode="nearest")[pk]
+        i_max, i_min, e_up, e_down = _extrema(pk, st.refined, fs)
+        parts.append((pk + a, st.integrated[pk], slope, i_max + a, i_min + a, e_up, e_down))
+    if not parts:
+        empty = np.zeros(0)
+        return (np.zeros(0, dtype=np.int64), empty, empty, np.zeros(0, dtype=np.int64),
+                np.zeros(0, dtype=np.int64), empty, empty)
+    return tuple(np.concatenate(col) for col in zip(*parts))
+
+
+def _merge_close(peaks, size, min_gap):
+    """Sort; of two peaks closer than ``min_gap`` (or equal), keep the larger excursion ``size``."""
+    order = np.argsort(peaks, kind="stable")
+    peaks, size = peaks[order], size[order]
     if peaks.size < 2:
         return peaks.astype(np.int64)
-    keep = [int(peaks[0])]
-    for p in peaks[1:]:
-        p = int(p)
-        if p - keep[-1] < min_gap:
-            if abs(refined[p]) > abs(refined[keep[-1]]):
-                keep[-1] = p
+    keep = [0]
+    for k in range(1, peaks.size):
+        if peaks[k] - peaks[keep[-1]] < min_gap:
+            if size[k] > size[keep[-1]]:
+                keep[-1] = k
         else:
-            keep.append(p)
-    return np.asarray(keep, dtype=np.int64)
+            keep.append(k)
+    return peaks[keep].astype(np.int64)
 
 
 @dataclass(frozen=True)
