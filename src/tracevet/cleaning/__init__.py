@@ -17,7 +17,22 @@ from tracevet.cleaning.settings import (
     load_profile,
 )
 from tracevet.cleaning.levels import auto_level, band_hz, resolve_level
-from tracevet.cleaning.engine import clean, clean_channel
+
+# The engine pulls in SciPy's signal module (about a second to import); it is
+# imported on first use (PEP 562) so that commands that never clean, such as
+# `tracevet status`, start fast.
+_ENGINE_NAMES = ("clean", "clean_channel")
+
+
+def __getattr__(name: str):
+    """Import ``clean`` and ``clean_channel`` from the engine when first asked for."""
+    if name in _ENGINE_NAMES:
+        from tracevet.cleaning import engine
+
+        value = getattr(engine, name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 __all__ = [
     "CleaningSettings",

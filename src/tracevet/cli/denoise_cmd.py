@@ -24,7 +24,6 @@ from tracevet.cleaning import (
     SETTING_HELP,
     CleaningSettings,
     apply_overrides,
-    clean,
     load_profile,
 )
 from tracevet.errors import InputError
@@ -140,6 +139,8 @@ def run(args: argparse.Namespace) -> int:
     if args.input is None or args.output is None:
         raise InputError("tracevet denoise", "needs INPUT and OUTPUT (see 'tracevet denoise --help')")
     output = check_output_path(args.output, args.input)
+    from tracevet.cleaning import clean  # the engine (and SciPy) only when a record is cleaned
+
     recording = read_input(args)
     cleaned = clean(recording, settings)
     write_recording(cleaned, output)
