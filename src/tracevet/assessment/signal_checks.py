@@ -1,0 +1,149 @@
+"""Whole-trace checks that do not need beats: clipping, edge artefacts, overall PRDN.
+
+Vectorised over the trace; no per-sample Python loops.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+# Window (s) for the edge comparison and the most interior windows sampled.
+EDGE_WINDOW_S = 0.5
+MAX_INTERIOR_WINDOWS = 2000
+
+
+def flat_runs_at_extremes(signal: np.ndarray, fs: float, min_ms: float = 4.0) -> np.ndarray:
+    """Runs of samples stuck at the trace's maximum or minimum.
+
+    A run counts when at least ``max(3, min_ms * fs / 1000)`` consecutive
+    samples lie within ``1e-7`` of the range from the global maximum (or
+    minimum): the signature of clipping (common practice).
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(n_runs, 2)`` int64 array of [start, end) sample indices.
+    """
+    signal = np.asarray(signal)
+    hi, lo = float(signal.max()), float(signal.min())
+    span = hi - lo
+    min_run = max(3, int(np.ceil(min_ms / 1000.0 * fs)))
+    if span == 0:
+        return np.array([[0, signal.size]], dtype=np.int64) if signal.size >= min_run else np.empty((0, 2), np.int64)
+    tol = 1e-7 * span
+    runs = []
+    for mask in (signal >= hi - tol, signal <= lo + tol):
+        edges = np.diff(np.concatenate([[0], mask.view(np.int8), [0]]))
+        starts = np.flatnonzero(edges == 1)
+        ends = np.flatnonzero(edges == -1)
+        keep = (ends - starts) >= min_run
+        runs.append(np.stack([starts[keep], ends[keep]], axis=1))
+    return np.concatenate(runs).astype(np.int64)
+
+
+def ahead_residual(values: np.ndarray, length: int) -> np.ndarray:
+    """``values[i]`` minus the mean of ``values[i : i + length]`` (shorter near the end).
+
+    A one-sided local mean: at the start of a trace it is the natural
+    reference, and the same operator applied inside the trace gives a fair
+    comparison (slopes bias both alike). Cumulative sums; no loop.
+    """
+    v = np.asarray(values, dtype=np.float64)
+    n = v.size
+    c = np.concatenate([[0.0], np.cumsum(v)])
+    start = np.arange(n)
+    stop = np.minimum(start + length, n)
+    return v - (c[stop] - c[start]) / (stop - start)
+
+
+def _smooth_rows(rows: np.ndarray, width: int) -> np.ndarray:
+    """Trailing-edge-safe moving average of ``width`` along rows ('valid' part, padded at the end)."""
+    if width <= 1 or rows.shape[1] <= width:
+        return rows
+    c = np.concatenate([np.zeros((rows.shape[0], 1)), np.cumsum(rows, axis=1)], axis=1)
+    valid = (c[:, width:] - c[:, :-width]) / width
+    return np.concatenate([valid, np.repeat(valid[:, -1:], width - 1, axis=1)], axis=1)
+
+
+def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tuple[float | None, list[tuple[int, int]]]:
+    """How far the removed component at the start and end exceeds its interior.
+
+    Two views of the removed component (original minus cleaned) over the
+    first and last 0.5 s, each compared with the same view of the interior
+    (up to 2000 windows spread evenly, 95th percentile); the larger excess is
+    returned:
+
+    * peak-to-peak (slow edge drifts);
+    * largest deviation (after a 40 ms moving average against noise) from
+      the mean of the next 0.3 s, looking inward from the edge (fast
+      transients, which baseline wander taken out in the interior would hide
+      in the first view).
+
+    A cleaning that behaves at the edges as inside gives a value at or below
+    zero (common practice).
+
+    Returns
+    -------
+    (value, windows)
+        ``value`` in record units (``None`` for traces shorter than 2 s) and
+        the [start, end) samples of the edge windows that exceed the interior.
+    """
+    n = original.size
+    width = max(8, int(round(EDGE_WINDOW_S * fs)))
+    ahead = max(2, int(round(0.3 * fs)))
+    n_windows = n // width
+    if n_windows < 4:
+        return None, []
+    interior = np.arange(1, n_windows - 1)
+    if interior.size > MAX_INTERIOR_WINDOWS:
+        interior = interior[np.linspace(0, interior.size - 1, MAX_INTERIOR_WINDOWS).round().astype(np.int64)]
+    idx = interior[:, None] * width + np.arange(width)[None, :]
+    inner = original[idx].astype(np.float64) - cleaned[idx].astype(np.float64)
+    ref_raw = float(np.percentile(np.ptp(inner, axis=1), 95))
+    # One-sided residuals of the interior windows, looking forward and backward.
+    long_idx = interior[:, None] * width + np.arange(width + ahead)[None, :]
+    long_idx = np.minimum(long_idx, n - 1)
+    longer = original[long_idx].astype(np.float64) - cleaned[long_idx].astype(np.float64)
+    c = np.concatenate([np.zeros((longer.shape[0], 1)), np.cumsum(longer, axis=1)], axis=1)
+    fwd = longer[:, :width] - (c[:, ahead : ahead + width] - c[:, :width]) / ahead
+    smooth = max(1, int(round(0.04 * fs)))
+    fwd = _smooth_rows(fwd, smooth)
+    ref_fast = float(np.percentile(np.max(np.abs(fwd), axis=1), 95))
+    edges = [(0, width), (n - width, n)]
+    values = []
+    for start, end in edges:
+        part = original[start:end].astype(np.float64) - cleaned[start:end].astype(np.float64)
+        if start == 0:
+            seg = original[: width + ahead].astype(np.float64) - cleaned[: width + ahead]
+            res = ahead_residual(seg, ahead)[:width]
+        else:
+            seg = original[n - width - ahead :].astype(np.float64) - cleaned[n - width - ahead :]
+            res = ahead_residual(seg[::-1], ahead)[:width]
+        res = _smooth_rows(res[None, :], smooth)[0]
+        values.append(max(float(np.ptp(part)) - ref_raw, float(np.max(np.abs(res))) - ref_fast))
+    return max(values), [edge for edge, value in zip(edges, values) if value > 0]
+
+
+def signal_comparison(original: np.ndarray, cleaned: np.ndarray, chunk: int = 1 << 20) -> tuple[float | None, float]:
+    """Whole-trace PRDN (%) and r.m.s. of the removed component (record units).
+
+    PRDN = 100 sqrt(sum (x - y)^2 / sum (x - mean x)^2) (common practice),
+    accumulated in chunks so that 24-hour traces need little memory. On a
+    noisy original it mostly measures the noise removed, which is why it is
+    reported but never flagged.
+    """
+    n = original.size
+    mean = 0.0
+    for start in range(0, n, chunk):
+        mean += float(np.sum(original[start : start + chunk], dtype=np.float64))
+    mean /= n
+    num = 0.0
+    den = 0.0
+    for start in range(0, n, chunk):
+        x = original[start : start + chunk].astype(np.float64)
+        diff = x - cleaned[start : start + chunk]
+        num += float(np.dot(diff, diff))
+        x -= mean
+        den += float(np.dot(x, x))
+    removed_rms = float(np.sqrt(num / n))
+    return (None if den == 0 else 100.0 * float(np.sqrt(num / den))), removed_rms
