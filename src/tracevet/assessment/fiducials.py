@@ -150,13 +150,13 @@ def qrs_bounds(deviation: np.ndarray, r: int, threshold: float, before: int, aft
 
     Searching outward from ``r`` (at most ``before`` samples back and ``after``
     forward), the bound is the first crossing below ``threshold`` that is
-    followed by at least 20 ms below it, so the brief flat top of R or S does
+    followed by at least 30 ms below it, so the brief flat top of R or S does
     not end the QRS (threshold delineation, common practice). Returned as
     fractional sample positions, linearly interpolated at the crossing, so
     low sampling rates do not quantise the width. Without a quiet run the
     bound is the end of the search range.
     """
-    run = max(2, int(round(0.02 * fs))) if fs else 3
+    run = max(2, int(round(0.03 * fs))) if fs else 3
     size = np.abs(deviation)
     quiet = size <= threshold
     hi = min(deviation.size, r + after + 1)

@@ -291,23 +291,25 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     else:
         metrics["r_timing_shift_ms"] = None
 
-    # QRS width change: the median over five slope thresholds (5-12.5 % of
-    # the steepest QRS slope) of the width change at that threshold, so that
-    # a Q or S shoulder lying near one threshold cannot decide the result.
+    # QRS width change: the median over five slope thresholds (4-8 % of
+    # each template's own steepest QRS slope, so that a mere change of
+    # amplitude does not count as a change of width) of the width change at
+    # that threshold, so that a Q or S shoulder lying near one threshold
+    # cannot decide the result.
     before = max(1, int(round(min(0.10, 0.20 * windows.rr_s) * fs)))
     after = max(1, int(round(min(0.12, 0.22 * windows.rr_s) * fs)))
     slope_x = np.abs(slope_of(x_t, fs))
     slope_y = np.abs(slope_of(y_t, fs))
     r_y = _peak_near(dev_y, fid.r, reach, fid.polarity)[0]
-    steepest = fid.threshold / 0.08 if fid.threshold > 0 else 0.0
+    steep_x = float(slope_x[max(0, fid.r - reach) : fid.r + reach + 1].max())
+    steep_y = float(slope_y[max(0, r_y - reach) : r_y + reach + 1].max())
     sigma_slope = median_standard_error(np.gradient(_smooth_rows_same(removed, int(round(SLOPE_SMOOTH_S * fs))), axis=1))
     floor = 5.0 * float(np.median(sigma_slope))
     curvature = np.gradient(slope_x)
     changes, allows = [], []
-    for fraction in (0.05, 0.065, 0.08, 0.10, 0.125):
-        threshold = max(fraction * steepest, floor)
-        on_x, off_x = qrs_bounds(slope_x, fid.r, threshold, before, after, fs)
-        on_y, off_y = qrs_bounds(slope_y, r_y, threshold, before, after, fs)
+    for fraction in (0.04, 0.05, 0.06, 0.07, 0.08):
+        on_x, off_x = qrs_bounds(slope_x, fid.r, max(fraction * steep_x, floor), before, after, fs)
+        on_y, off_y = qrs_bounds(slope_y, r_y, max(fraction * steep_y, floor), before, after, fs)
         changes.append(((off_y - on_y) - (off_x - on_x)) / fs * 1000.0)
         # Crossing-time error = slope noise / rate of change of the slope there.
         parts = []

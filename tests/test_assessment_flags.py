@@ -1,0 +1,181 @@
+"""Each distortion flag fires just beyond its limit and stays quiet just within it.
+
+The pairs are a noise-free synthetic ECG (McSharry et al. 2003 model,
+tracevet.synthetic) and the same trace with one distortion of known size;
+beats are given from the model so the test measures the assessment alone.
+The limits and their sources are in tracevet/assessment/limits.py and the
+README; each test names the source of the limit it checks.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import fidelity_cases as fc
+from tracevet import synthetic as syn
+from tracevet.assessment import assess, default_limits
+from tracevet.assessment.flags import evaluate, grade
+from tracevet.recording import Recording
+
+FS = 1000.0
+
+
+@pytest.fixture(scope="module")
+def ecg():
+    rec = syn.synthetic_ecg(20.0, FS, heart_rate_bpm=70.0, seed=3)
+    normal = rec.beat_labels == "N"
+    src = fc.Source("t", rec.signal, rec.signal, FS, rec.r_peaks, rec.fiducials["P"][normal],
+                    rec.fiducials["T"][normal], "ecg", "mV", 1.0)
+    return src
+
+
+def _assess(src, cleaned, units="mV", kind="ecg", scale=1.0):
+    def rec(values):
+        return Recording(np.asarray(values) * scale, src.fs, ("II",), units=units, kind=kind)
+
+    return assess(rec(src.clean), rec(cleaned), detector=lambda s, f: src.r_peaks)
+
+
+def _severity(result, flag_id):
+    found = [f.severity for f in result.flags if f.id == flag_id]
+    return found[0] if found else None
+
+
+def test_faithful_copy_has_no_flag(ecg):
+    result = _assess(ecg, ecg.clean.copy())
+    assert result.flags == []
+    assert result.metrics["r_amplitude_ratio"] == pytest.approx(1.0)
+
+
+@pytest.mark.parametrize("factor, expected", [(0.83, "fail"), (0.86, "warn"), (0.90, None), (1.18, "fail")])
+def test_r_peak_change_limits(ecg, factor, expected):
+    # Limits 12 % (warn) and 16 % (fail): common practice, of the order of the
+    # about 10 % amplitude tolerance of the IEC 60601-2-25 short-pulse test (from memory).
+    result = _assess(ecg, fc.scale_r(ecg.clean, ecg, factor))
+    assert result.metrics["r_amplitude_ratio"] == pytest.approx(factor, abs=0.005)
+    assert _severity(result, "r-peak-change") == expected
+
+
+@pytest.mark.parametrize("delta, expected", [(0.11, "fail"), (0.07, "warn"), (0.04, None), (-0.11, "fail")])
+def test_st_level_change_limits_absolute_mv(ecg, delta, expected):
+    # 0.1 mV (fail), 0.05 mV (warn): an ST deviation of 0.1 mV is a diagnostic
+    # criterion (Thygesen et al.; AHA/ACCF/HRS 2009 Part VI), read at J+80 ms
+    # (Long-Term ST Database convention).
+    result = _assess(ecg, fc.shift_st(ecg.clean, ecg, delta))
+    assert result.metrics["st_change"] == pytest.approx(delta, abs=0.003)
+    assert _severity(result, "st-level-change") == expected
+    if expected:
+        flag = next(f for f in result.flags if f.id == "st-level-change")
+        assert "absolute limit in mV" in flag.message and "channel II" in flag.message
+
+
+def test_st_limit_in_microvolts_is_converted(ecg):
+    # Same record in uV: the 0.1 mV limit becomes 100 uV; value and limit are reported in mV.
+    result = _assess(ecg, fc.shift_st(ecg.clean, ecg, 0.11), units="uV", scale=1000.0)
+    flag = next(f for f in result.flags if f.id == "st-level-change")
+    assert flag.severity == "fail"
+    assert flag.value == pytest.approx(0.11, abs=0.003)
+    assert flag.limit == pytest.approx(0.1)
+
+
+@pytest.mark.parametrize("fraction, expected", [(0.11, "fail"), (0.07, "warn"), (0.04, None)])
+def test_st_level_change_relative_for_mcg(ecg, fraction, expected):
+    # MCG in pT: relative limits, 10 % (fail) and 5 % (warn) of the R amplitude
+    # (the 0.1 mV criterion scaled to a 1 mV R; common practice).
+    result = _assess(ecg, fc.shift_st(ecg.clean, ecg, fraction), units="pT", kind="mcg", scale=70.0)
+    assert _severity(result, "st-level-change") == expected
+    if expected:
+        flag = next(f for f in result.flags if f.id == "st-level-change")
+        assert "relative limit" in flag.message
+
+
+@pytest.mark.parametrize("wave", ["P", "T"])
+@pytest.mark.parametrize("factor, expected", [(0.65, "fail"), (0.75, "warn"), (0.85, None)])
+def test_p_and_t_wave_change_limits(ecg, wave, factor, expected):
+    # 30 % (fail) and 20 % (warn) of the wave's amplitude: common practice.
+    result = _assess(ecg, fc.scale_wave(ecg.clean, ecg, wave, factor))
+    assert result.metrics[f"{wave.lower()}_amplitude_ratio"] == pytest.approx(factor, abs=0.02)
+    assert _severity(result, f"{wave.lower()}-wave-change") == expected
+
+
+@pytest.mark.parametrize("ms, expected", [(5.0, "fail"), (3.0, "warn"), (1.0, None)])
+def test_beat_timing_shift_limits(ecg, ms, expected):
+    # 4 ms (fail), 2 ms (warn): common practice (diagnostic timing read to 2-4 ms).
+    result = _assess(ecg, fc.time_shift(ecg.clean, ecg, ms))
+    assert result.metrics["r_timing_shift_ms"] == pytest.approx(ms, abs=0.2)
+    assert _severity(result, "beat-timing-shift") == expected
+
+
+def test_qrs_widening_grows_with_smoothing(ecg):
+    # Gaussian smoothing of the QRS widens it; 10 ms (fail) and 6 ms (warn) limits, common practice.
+    widths = [_assess(ecg, fc.widen_qrs(ecg.clean, ecg, s)).metrics["qrs_width_change_ms"] for s in (3, 6, 9)]
+    assert 0 < widths[0] < widths[1] < widths[2]
+    assert _severity(_assess(ecg, fc.widen_qrs(ecg.clean, ecg, 9)), "qrs-widening") == "fail"
+    assert _severity(_assess(ecg, fc.widen_qrs(ecg.clean, ecg, 3)), "qrs-widening") is None
+
+
+def test_ringing_fires_and_stays_quiet(ecg):
+    # 0.025 mV r.m.s. (fail): Rijnbeek et al. 2001 (amplitude errors of 25 uV matter).
+    assert _severity(_assess(ecg, fc.add_ringing(ecg.clean, ecg, 0.15)), "ringing") == "fail"
+    assert _severity(_assess(ecg, fc.add_ringing(ecg.clean, ecg, 0.02)), "ringing") is None
+
+
+@pytest.mark.parametrize("fraction, expected", [(0.17, "fail"), (0.12, "warn"), (0.07, None)])
+def test_removed_beat_structure_limits(ecg, fraction, expected):
+    # A cleaning that removes a scaled copy of the beat: 15 % (fail), 10 % (warn), common practice.
+    result = _assess(ecg, ecg.clean * (1.0 - fraction))
+    assert result.metrics["removed_beat_fraction"] == pytest.approx(fraction, abs=0.005)
+    assert _severity(result, "removed-beat-structure") == expected
+
+
+def test_clipping_fires_only_when_clipped(ecg):
+    # Any flat run at the extremes that the original lacks fails (common practice).
+    assert _severity(_assess(ecg, fc.clip_top(ecg.clean, ecg, 0.8)), "clipping") == "fail"
+    result = _assess(ecg, fc.clip_top(ecg.clean, ecg, 1.5))
+    assert _severity(result, "clipping") is None
+
+
+def test_edge_artefact_fires_and_stays_quiet(ecg):
+    # 0.2 mV (fail), 0.1 mV (warn) beyond the interior: common practice.
+    assert _severity(_assess(ecg, fc.edge_transient(ecg.clean, ecg, 0.6)), "edge-artefact") == "fail"
+    assert _severity(_assess(ecg, fc.edge_transient(ecg.clean, ecg, 0.05)), "edge-artefact") is None
+
+
+# The grading itself, exactly at and around each limit (values are what the measures report).
+LIMIT_CASES = [
+    # (flag id, metric name, value just within warn, just beyond warn, just beyond fail, metric transform)
+    ("r-peak-change", "r_amplitude_ratio", 1 - 0.119, 1 - 0.121, 1 - 0.161),
+    ("qrs-widening", "qrs_width_change_ms", 5.9, 6.1, 10.1),
+    ("beat-timing-shift", "r_timing_shift_ms", 1.9, 2.1, 4.1),
+    ("st-level-change", "st_change", 0.049, 0.051, 0.101),
+    ("p-wave-change", "p_amplitude_ratio", 0.81, 0.79, 0.69),
+    ("t-wave-change", "t_amplitude_ratio", 0.81, 0.79, 0.69),
+    ("ringing", "ringing_rms", 0.0149, 0.0151, 0.0251),
+    ("removed-beat-structure", "removed_beat_fraction", 0.099, 0.101, 0.151),
+    ("beat-shape-change", "beat_shape_change_percent", 14.9, 15.1, 22.1),
+    ("edge-artefact", "edge_deviation", 0.099, 0.101, 0.201),
+]
+
+
+@pytest.mark.parametrize("flag_id, metric, within, beyond_warn, beyond_fail", LIMIT_CASES)
+def test_grading_at_each_limit(flag_id, metric, within, beyond_warn, beyond_fail):
+    limits = default_limits("ecg", "mV")
+    base = {"r_amplitude": 1.0}
+    for value, expected in ((within, None), (beyond_warn, "warn"), (beyond_fail, "fail")):
+        flags = evaluate("II", dict(base, **{metric: value}), {}, limits)
+        assert [f.severity for f in flags if f.id == flag_id] == ([expected] if expected else [])
+
+
+def test_clipping_grading():
+    limits = default_limits("ecg", "mV")
+    assert evaluate("II", {"clipped_runs": 0.0}, {}, limits) == []
+    assert [f.severity for f in evaluate("II", {"clipped_runs": 1.0}, {}, limits)] == ["fail"]
+
+
+def test_noise_allowance_widens_but_never_tightens():
+    # grade(value, warn, fail, allowance): the limit in force is max(limit, allowance).
+    assert grade(0.12, 0.05, 0.10, 0.0) == ("fail", 0.10)
+    assert grade(0.12, 0.05, 0.10, 0.15) == (None, 0.15)
+    assert grade(0.12, 0.05, 0.10, 0.11) == ("fail", 0.11)
+    assert grade(0.04, 0.05, 0.10, 0.01) == (None, 0.05)
