@@ -42,7 +42,7 @@ def _cases():
 def outcomes():
     rows = []
     for case in _cases():
-        result = assess(case.original, case.cleaned, detector=lambda s, f, r=case.r_peaks: r)
+        result = assess(case.original, case.cleaned)  # beats from detect_qrs, as in use
         rows.append((case, result))
     return rows
 

@@ -1,0 +1,189 @@
+"""``tracevet assess``: compare a cleaned recording with its original and flag shape distortion.
+
+Contract for scripts (keep stable): with ``--json`` exactly one JSON object on
+stdout, ``{"metrics": {...}, "flags": [{"id", "severity", "message", "value",
+"limit", "source"}, ...]}``; exit 0 when no flag is ``fail``, 1 when at least
+one is, 2 with one line on stderr for bad input or usage.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+from pathlib import Path
+
+import yaml
+
+from tracevet.assessment import FLAG_IDS, Assessment, assess, limits_from_mapping
+from tracevet.errors import InputError
+from tracevet.recording import KINDS, SUPPORTED_READ, Recording, read_recording
+from tracevet.recording.atomic import write_text_atomic
+from tracevet.text import inert
+
+CAUTION = "tracevet is not a medical device and does not diagnose; its flags support, never replace, review by qualified staff."
+
+# Metrics shown in the readable report, with labels and the unit kind.
+REPORT_ROWS = (
+    ("beat_count", "beats detected", "count"),
+    ("dominant_beat_count", "beats in the dominant shape", "count"),
+    ("other_beat_count", "beats of other shape", "count"),
+    ("heart_rate_bpm", "heart rate", "bpm"),
+    ("r_amplitude", "R amplitude (original)", "amp"),
+    ("template_noise", "template noise", "amp"),
+    ("prd_percent", "PRD, beat template", "%"),
+    ("prdn_percent", "PRDN, beat template", "%"),
+    ("rmse", "RMSE, beat template", "amp"),
+    ("correlation", "correlation, beat template", "ratio"),
+    ("r_amplitude_ratio", "R amplitude ratio", "ratio"),
+    ("r_timing_shift_ms", "R timing shift", "signed ms"),
+    ("qrs_width_ms", "QRS width (original)", "ms"),
+    ("qrs_width_change_ms", "QRS width change", "signed ms"),
+    ("st_change", "ST level change", "signed amp"),
+    ("p_amplitude_ratio", "P amplitude ratio", "ratio"),
+    ("t_amplitude_ratio", "T amplitude ratio", "ratio"),
+    ("ringing_rms", "ringing beside QRS (r.m.s.)", "amp"),
+    ("removed_beat_fraction", "beat shape in removed part", "ratio"),
+    ("beat_shape_change_percent", "beat shape change", "%"),
+    ("clipped_runs", "clipped runs", "count"),
+    ("edge_deviation", "edge excess", "amp"),
+    ("signal_prdn_percent", "PRDN, whole trace", "%"),
+    ("removed_rms", "removed part (r.m.s.)", "amp"),
+)
+
+
+def load_limits_file(path: str):
+    """Read flag limits from YAML: a ``flag_limits:`` section or the mapping itself.
+
+    Raises InputError with one line naming the file for anything unusable.
+    """
+    file = Path(path)
+    if not file.is_file():
+        raise InputError(path, "no such file")
+    try:
+        data = yaml.safe_load(file.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(path, f"cannot read ({type(exc).__name__})") from None
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}" if mark is not None else ""
+        raise InputError(path, f"not valid YAML{where}") from None
+    if data is None:
+        return {}
+    if isinstance(data, dict) and "flag_limits" in data:
+        data = data["flag_limits"]
+    return limits_from_mapping(data if data is not None else {}, path)
+
+
+def _format(value, unit: str, units: str | None) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "n/a"
+    if unit == "count":
+        return f"{int(round(value))}"
+    if unit == "bpm":
+        return f"{value:.0f} bpm"
+    if unit == "%":
+        return f"{value:.1f} %"
+    if unit == "ms":
+        return f"{value:.1f} ms"
+    if unit == "signed ms":
+        return f"{value:+.1f} ms"
+    if unit == "ratio":
+        return f"{value:.3f}"
+    unit_text = inert(units) if units else "(record units)"
+    return f"{value:+.4g} {unit_text}" if unit == "signed amp" else f"{value:.4g} {unit_text}"
+
+
+def report_text(result: Assessment, original: Recording, args: argparse.Namespace) -> str:
+    """The readable report: record, metrics per channel, flags, outcome."""
+    ctx = result.context
+    units = ctx.get("units")
+    lines = [
+        f"tracevet assess: {inert(args.original)} (original) vs {inert(args.cleaned)} (cleaned)",
+        f"record: {ctx.get('kind')}, units {inert(units) if units else 'unknown'}, {original.n_channels} channel(s), "
+        f"{original.fs:g} Hz, {original.duration_s:.1f} s; amplitude limits "
+        + ("absolute, in mV" if ctx.get("limit_mode") == "absolute" else "relative, fraction of the R amplitude"),
+    ]
+    multi = original.n_channels > 1
+    for name in original.channels:
+        lines.append("")
+        lines.append(f"channel {inert(name)}")
+        for key, label, unit in REPORT_ROWS:
+            value = result.metrics.get(f"{key}@{name}" if multi else key)
+            lines.append(f"  {label:<30s} {_format(value, unit, units)}")
+    lines.append("")
+    if result.flags:
+        lines.append(f"flags ({len(result.flags)}):")
+        for flag in result.flags:
+            lines.append(f"  {flag.severity.upper():4s} {flag.id}: {inert(flag.message)}")
+            lines.append(f"       source: {inert(flag.source)}")
+    else:
+        lines.append("flags: none")
+    fails = sum(f.severity == "fail" for f in result.flags)
+    warns = sum(f.severity == "warn" for f in result.flags)
+    outcome = "FAIL" if fails else ("WARN" if warns else "PASS")
+    lines.append(f"result: {outcome} ({fails} fail, {warns} warn)")
+    lines.append(CAUTION)
+    return "\n".join(lines)
+
+
+def json_text(result: Assessment) -> str:
+    """The JSON contract as one line of text (no NaN)."""
+    return json.dumps(result.to_json_dict(), allow_nan=False, ensure_ascii=True)
+
+
+def exit_code(result: Assessment) -> int:
+    """1 when at least one flag fails, else 0."""
+    return 1 if result.worst_severity == "fail" else 0
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``tracevet assess``."""
+    limits = load_limits_file(args.limits) if args.limits else None
+    original = read_recording(args.original, fs=args.fs, kind=args.kind, units=args.units)
+    cleaned = read_recording(args.cleaned, fs=args.fs, kind=args.kind, units=args.units)
+    result = assess(original, cleaned, limits=limits)
+    if args.save:
+        folder = Path(args.save)
+        if not folder.is_dir():
+            raise InputError(args.save, "folder does not exist")
+        result.save(folder)
+    if args.json:
+        sys.stdout.write(json_text(result) + "\n")
+    else:
+        sys.stdout.write(report_text(result, original, args) + "\n")
+    return exit_code(result)
+
+
+def register(subparsers) -> argparse.ArgumentParser:
+    """Add the ``assess`` command to the ``tracevet`` parser."""
+    parser = subparsers.add_parser(
+        "assess",
+        help="compare a cleaned recording with its original beat by beat and flag shape distortion",
+        description=(
+            "Find the beats on ORIGINAL, build median beat templates of the original and the cleaned "
+            "trace, measure how the cleaning changed the shape (R amplitude, QRS width, beat timing, ST "
+            "level, P and T waves, ringing, beat shape in the removed part, clipping, edges) and flag "
+            "changes beyond the limits. Amplitude limits are absolute (mV) for ECG in known units and "
+            "relative (fraction of the R amplitude) otherwise."
+        ),
+        epilog=(
+            f"flags: {', '.join(FLAG_IDS)}\n"
+            "limits file: YAML with a flag_limits: mapping, e.g.\n"
+            "  flag_limits:\n    r-peak-change: {warn: 0.10, fail: 0.15}\n    edge-artefact: off\n\n"
+            "exit status: 0 no fail flag; 1 at least one fail flag; 2 bad input or usage (one line on stderr).\n"
+            + CAUTION
+        ),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("original", metavar="ORIGINAL", help=f"the recording before cleaning ({', '.join(SUPPORTED_READ)})")
+    parser.add_argument("cleaned", metavar="CLEANED", help="the cleaned recording (same length, rate and channels)")
+    parser.add_argument("--fs", type=float, metavar="HZ", help="sampling rate in Hz (needed for .npy; must agree with the files otherwise)")
+    parser.add_argument("--kind", choices=KINDS, help="ecg, mcg or other (overrides the files)")
+    parser.add_argument("--units", metavar="U", help="units of the samples: mV, uV, pT, fT... (overrides the files)")
+    parser.add_argument("--limits", metavar="FILE", help="YAML file with flag limits (a flag_limits: mapping)")
+    parser.add_argument("--json", action="store_true", help="print exactly one JSON object: metrics and flags")
+    parser.add_argument("--save", metavar="FOLDER", help="also write assessment.json and beats.npz into FOLDER")
+    parser.set_defaults(func=run)
+    return parser
