@@ -9,7 +9,6 @@ Public API::
     detect_qrs(signal, fs), match_beats(...)   (tracevet.assessment.qrs)
 """
 
-from tracevet.assessment.core import METRIC_NAMES, assess, resolve_limits
 from tracevet.assessment.flags import Flag
 from tracevet.assessment.limits import FLAG_IDS, Limits, LimitSpec, default_limits, limits_from_mapping
 from tracevet.assessment.result import Assessment, ChannelBeats
@@ -27,3 +26,12 @@ __all__ = [
     "FLAG_IDS",
     "METRIC_NAMES",
 ]
+
+
+def __getattr__(name):
+    """Import the measuring core on first use, so that building the command line stays light."""
+    if name in ("assess", "resolve_limits", "METRIC_NAMES"):
+        from tracevet.assessment import core
+
+        return getattr(core, name)
+    raise AttributeError(f"module 'tracevet.assessment' has no attribute {name!r}")

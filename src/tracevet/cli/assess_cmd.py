@@ -16,7 +16,7 @@ from pathlib import Path
 
 import yaml
 
-from tracevet.assessment import FLAG_IDS, Assessment, assess, limits_from_mapping
+from tracevet.assessment.limits import FLAG_IDS, limits_from_mapping
 from tracevet.errors import InputError
 from tracevet.recording import KINDS, SUPPORTED_READ, Recording, read_recording
 from tracevet.recording.atomic import write_text_atomic
@@ -95,7 +95,7 @@ def _format(value, unit: str, units: str | None) -> str:
     return f"{value:+.4g} {unit_text}" if unit == "signed amp" else f"{value:.4g} {unit_text}"
 
 
-def report_text(result: Assessment, original: Recording, args: argparse.Namespace) -> str:
+def report_text(result, original: Recording, args: argparse.Namespace) -> str:
     """The readable report: record, metrics per channel, flags, outcome."""
     ctx = result.context
     units = ctx.get("units")
@@ -128,18 +128,20 @@ def report_text(result: Assessment, original: Recording, args: argparse.Namespac
     return "\n".join(lines)
 
 
-def json_text(result: Assessment) -> str:
+def json_text(result) -> str:
     """The JSON contract as one line of text (no NaN)."""
     return json.dumps(result.to_json_dict(), allow_nan=False, ensure_ascii=True)
 
 
-def exit_code(result: Assessment) -> int:
+def exit_code(result) -> int:
     """1 when at least one flag fails, else 0."""
     return 1 if result.worst_severity == "fail" else 0
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``tracevet assess``."""
+    from tracevet.assessment import assess  # heavy (SciPy): imported when the command runs
+
     limits = load_limits_file(args.limits) if args.limits else None
     original = read_recording(args.original, fs=args.fs, kind=args.kind, units=args.units)
     cleaned = read_recording(args.cleaned, fs=args.fs, kind=args.kind, units=args.units)
