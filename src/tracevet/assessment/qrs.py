@@ -34,6 +34,8 @@ _RR_LOW, _RR_HIGH = 0.92, 1.16  # limits of a regular RR
 _MIN_CONTRAST = 30.0
 _GATE_BLOCK_S = 20.0
 _NOISE_RATE_HZ = 2.75
+_NOISE_CONTRAST = 12.0
+_STANDS_OUT = 80.0
 _REFINE_S = 0.09
 # No R peak is reported this close to either end of the record: the QRS is cut
 # there and its extremum cannot be told from a filter edge effect.
@@ -229,8 +231,13 @@ def _noise_only_blocks(candidates, values, chosen, fs, n_samples) -> np.ndarray:
     with white noise at 3 dB SNR; clean or moderately noisy ECG has a contrast
     far above 30 at any rate (our measurements on synthetic records and the
     MIT-BIH excerpt). When fewer than 3 peaks were rejected in a block, the
-    rejected peaks of the two neighbouring blocks are used as well; with fewer
-    than 3 still, the block is not judged.
+    highest of the median rejected values of this block and its two neighbours
+    is used; with fewer than 3 rejected peaks in all three, the block is not
+    judged. A block next to a noise block is
+    also taken for noise when its contrast is under 12 (the start of a noise
+    stretch, while the thresholds come down from the ECG level). In a noise
+    block, a detection whose own value is at least 80 times the block's median
+    rejected value is kept (beats sharing a block with the end of a noise stretch).
     """
     block = max(1, int(_GATE_BLOCK_S * fs))
     accepted = np.zeros(values.size, dtype=bool)
@@ -245,15 +252,33 @@ def _noise_only_blocks(candidates, values, chosen, fs, n_samples) -> np.ndarray:
         members = order[bounds[b] : bounds[b + 1]]
         return values[members[accepted[members] == want_accepted]]
 
+    contrast = np.full(n_blocks, np.inf)
+    rejected_level = np.full(n_blocks, np.inf)
     for b in range(n_blocks):
         acc = block_values(b, True)
         rej = block_values(b, False)
-        if rej.size < 3:  # borrow the rejected peaks of the neighbouring blocks
-            rej = np.concatenate([block_values(k, False) for k in range(max(0, b - 1), min(n_blocks, b + 2))])
+        level = float(np.median(rej)) if rej.size >= 3 else None
+        if level is None:  # few rejected: the highest median of this and the neighbouring blocks
+            pools = [block_values(k, False) for k in range(max(0, b - 1), min(n_blocks, b + 2))]
+            if sum(p.size for p in pools) >= 3:
+                level = max(float(np.median(p)) for p in pools if p.size)
+        if acc.size and level is not None:
+            rejected_level[b] = max(level, 1e-300)
+            contrast[b] = np.median(acc) / rejected_level[b]
         seconds = (min(n_samples, (b + 1) * block) - b * block) / fs
-        if acc.size and rej.size >= 3 and acc.size >= _NOISE_RATE_HZ * seconds:
-            noisy_block[b] = np.median(acc) < _MIN_CONTRAST * np.median(rej)
-    return noisy_block[blk[chosen]]
+        noisy_block[b] = acc.size >= _NOISE_RATE_HZ * seconds and contrast[b] < _MIN_CONTRAST
+    # Next to a noise block, where the thresholds are still settling and fewer
+    # peaks are accepted, a contrast as low as pure noise's is enough.
+    for _ in range(2):
+        beside = np.zeros(n_blocks, dtype=bool)
+        beside[1:] |= noisy_block[:-1]
+        beside[:-1] |= noisy_block[1:]
+        noisy_block |= beside & (contrast < _NOISE_CONTRAST)
+    # In a noise block, a peak that alone stands out as a beat would is kept
+    # (the first beats after a noise stretch share its block).
+    b_chosen = blk[chosen]
+    stands_out = values[chosen] >= _STANDS_OUT * rejected_level[b_chosen]
+    return noisy_block[b_chosen] & ~stands_out
 
 
 def _extrema(positions, refined, fs):
