@@ -28,7 +28,7 @@ import numpy as np
 import pywt
 
 from tracevet.cleaning import filters, shrinkage, thresholds
-from tracevet.cleaning.blocks import DEFAULT_BLOCK_SAMPLES, Block, plan_blocks, process_inplace
+from tracevet.cleaning.blocks import DEFAULT_BLOCK_SAMPLES, plan_blocks, process_inplace
 from tracevet.cleaning.levels import resolve_level
 from tracevet.cleaning.noise import level_sigmas
 from tracevet.cleaning.settings import CleaningSettings
@@ -106,20 +106,25 @@ class _LevelStatistics:
         self.want_peaks = settings.rule == "bayes"
         self.peaks = [0.0] * levels
 
-    def add(self, details: list[np.ndarray], block) -> None:
-        """Take the core coefficients of one block (``details`` finest first)."""
-        core_len = block.core_stop - block.core_start
+    def add(self, details: list[np.ndarray], core_start: int, core_stop: int, origin: int) -> None:
+        """Take the coefficients of samples ``[core_start, core_stop)`` from one block.
+
+        ``details`` (finest first) come from a decimated transform of samples
+        starting at ``origin`` (a multiple of ``2^level``, negative when the
+        segment was extended on the left), so coefficient ``k`` of level ``j``
+        sits at record position ``origin + k 2^j``.
+        """
         for j in range(1, len(self.parts) + 1):
             d = details[j - 1]
-            lo = block.core_offset >> j
-            hi = min(d.shape[0], (block.core_offset + core_len) >> j)
+            lo = (core_start - origin) >> j
+            hi = min(d.shape[0], (core_stop - origin) >> j)
             if hi <= lo:
                 continue
             core = d[lo:hi]
             if self.want_peaks:
                 self.peaks[j - 1] = max(self.peaks[j - 1], float(np.max(np.abs(core))))
             stride = self.strides[j - 1]
-            first = (-(lo + (block.start >> j))) % stride
+            first = (-(lo + (origin >> j))) % stride
             self.parts[j - 1].append(np.abs(core[first::stride]))
 
     def thresholds(self, settings: CleaningSettings, level: int) -> list[float]:
@@ -168,11 +173,12 @@ def level_thresholds(
 ) -> list[float]:
     """Thresholds in signal units for detail levels 1..level (finest first).
 
-    Statistics come from the decimated (DWT, boundary mode ``extension``)
-    detail coefficients of the whole channel, computed block by block on the
-    same dyadic grid, so that they do not depend on the block size; for the
-    SWT these are the decimation-phase-0 subset of its coefficients at each
-    level, with the same distribution. The sample size ``n`` of the
+    Statistics come from decimated detail coefficients of the whole channel,
+    computed block by block on the record's dyadic grid, so that they do not
+    depend on the block size: for the DWT its own coefficients (boundary mode
+    ``extension``); for the SWT the decimation-phase-0 subset of its own
+    coefficients (the periodic DWT of the extended signal), which have the
+    same distribution as the rest. The sample size ``n`` of the
     universal and minimax rules is the number of samples of the channel; the
     level size ``d`` of SURE and hybrid is the number of coefficients of the
     level (Donoho & Johnstone 1994, 1995).
@@ -182,7 +188,12 @@ def level_thresholds(
     levels = _levels_needed(settings, level)
     stats = _LevelStatistics(n, levels, settings)
     for block in plan_blocks(n, block_samples, _wavelet_overlap(wavelet, level), 1 << level):
-        stats.add(_stats_details(buf[block.start : block.stop], settings, levels, wavelet), block)
+        segment = buf[block.start : block.stop]
+        if settings.transform == "swt":
+            details, left = shrinkage.swt_phase0_details(segment, wavelet, settings.extension, level, levels)
+            stats.add(details, block.core_start, block.core_stop, block.start - left)
+        else:
+            stats.add(_stats_details(segment, settings, levels, wavelet), block.core_start, block.core_stop, block.start)
     return stats.thresholds(settings, level)
 
 
@@ -192,11 +203,24 @@ def _dwt_single_block(buf: np.ndarray, settings: CleaningSettings, level: int) -
     coeffs = pywt.wavedec(buf, settings.wavelet, mode=settings.extension, level=level)
     levels = _levels_needed(settings, level)
     stats = _LevelStatistics(n, levels, settings)
-    stats.add(coeffs[:0:-1][:levels], Block(0, n, 0, n))
+    stats.add(coeffs[:0:-1][:levels], 0, n, 0)
     lams = stats.thresholds(settings, level)
     for j, lam in enumerate(lams, start=1):
         shrinkage.threshold_inplace(coeffs[-j], lam, settings.threshold_mode)
     buf[:] = pywt.waverec(coeffs, settings.wavelet, mode=settings.extension)[:n]
+
+
+def _swt_single_block(buf: np.ndarray, settings: CleaningSettings, level: int, wavelet) -> None:
+    """Whole channel in one go: the SWT's own phase-0 rows give the statistics."""
+    n = buf.shape[0]
+    levels = _levels_needed(settings, level)
+
+    def thresholds_from(phase0: list[np.ndarray], left: int) -> list[float]:
+        stats = _LevelStatistics(n, levels, settings)
+        stats.add(phase0[:levels], 0, n, -left)
+        return stats.thresholds(settings, level)
+
+    buf[:] = shrinkage.swt_shrink(buf, wavelet, settings.extension, level, thresholds_from, settings.threshold_mode)
 
 
 def clean_channel(
@@ -249,8 +273,11 @@ def clean_channel(
     _apply_filters(buf, fs, settings, block_samples, filter_report)
     wavelet = shrinkage.as_wavelet(settings.wavelet)
     blocks = plan_blocks(n, block_samples, _wavelet_overlap(wavelet, level), 1 << level)
-    if settings.transform == "dwt" and len(blocks) == 1:
-        _dwt_single_block(buf, settings, level)
+    if len(blocks) == 1:  # one transform serves statistics and shrinkage
+        if settings.transform == "dwt":
+            _dwt_single_block(buf, settings, level)
+        else:
+            _swt_single_block(buf, settings, level, wavelet)
         stages.report(n_filters + 1, 1.0)
         return buf
     lams = level_thresholds(buf, settings, level, block_samples)

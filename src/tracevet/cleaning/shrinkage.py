@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Sequence
+from typing import Callable, Sequence
 
 import numpy as np
 import pywt
@@ -155,25 +155,59 @@ def swt_reach(wavelet: str, level: int) -> int:
     return 2 * (as_wavelet(wavelet).dec_len - 1) * (1 << level)
 
 
-def swt_shrink(segment: np.ndarray, wavelet: str, mode: str, level: int, lams: Sequence[float], threshold_mode: str) -> np.ndarray:
+def swt_extend(segment: np.ndarray, wavelet, mode: str, level: int) -> tuple[np.ndarray, int]:
+    """Extend a segment for the SWT: by the transform's reach on both sides
+    (boundary mode ``mode``) and up to a multiple of ``2^level``.
+
+    Returns the extended array and the length of the left extension (a
+    multiple of ``2^level``, so the dyadic grid is kept).
+    """
+    n = segment.shape[0]
+    left = swt_reach(wavelet, level)
+    right = left + (-(n + 2 * left)) % (1 << level)
+    pad_mode = "periodic" if mode == "periodization" else mode
+    return pywt.pad(segment, (left, right), pad_mode), left
+
+
+def swt_phase0_details(segment: np.ndarray, wavelet, mode: str, level: int, levels: int) -> tuple[list[np.ndarray], int]:
+    """The decimation-phase-0 detail rows of :func:`swt_shrink`'s transform, finest first.
+
+    They are the periodic DWT (``pywt.wavedec``, mode ``periodization``) of
+    the extended segment, computed without the rest of the SWT; returns them
+    with the left extension length.
+    """
+    extended, left = swt_extend(segment, wavelet, mode, level)
+    coeffs = pywt.wavedec(extended, wavelet, mode="periodization", level=levels)
+    return coeffs[:0:-1], left
+
+
+def swt_shrink(
+    segment: np.ndarray,
+    wavelet,
+    mode: str,
+    level: int,
+    lams: Sequence[float] | Callable[[list[np.ndarray], int], Sequence[float]],
+    threshold_mode: str,
+) -> np.ndarray:
     """Stationary (undecimated) wavelet shrinkage of a segment.
 
-    The segment is extended at both ends with boundary mode ``mode`` by the
-    transform's reach and up to a multiple of ``2^level`` (``pywt.swt``
-    itself wraps around), transformed with :func:`swt_forward`, each detail level
+    The segment is extended (:func:`swt_extend`; the transform itself wraps
+    around), transformed with :func:`swt_forward`, each detail level
     thresholded, inverted with :func:`swt_inverse` and cropped
     (translation-invariant denoising, Coifman & Donoho 1995, Lecture Notes in
     Statistics 103:125-150).
+
+    ``lams`` is one threshold per detail level (finest first), or a function
+    that receives the decimation-phase-0 detail rows (finest first, as
+    :func:`swt_phase0_details` returns them) and the left extension length,
+    and returns the thresholds: then one transform serves both.
     """
     n = segment.shape[0]
-    block = 1 << level
-    left = swt_reach(wavelet, level)
-    total = n + 2 * left
-    right = left + (-total) % block
-    pad_mode = "periodic" if mode == "periodization" else mode
-    extended = pywt.pad(segment, (left, right), pad_mode)
+    extended, left = swt_extend(segment, wavelet, mode, level)
     approx, details = swt_forward(extended, wavelet, level)
     del extended
+    if callable(lams):
+        lams = lams([d[0] for d in details], left)
     for detail, lam in zip(details, lams):
         threshold_inplace(detail, lam, threshold_mode)
     out = swt_inverse(approx, details, wavelet)
