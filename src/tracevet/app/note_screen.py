@@ -22,7 +22,9 @@ class NoteScreen(ModalScreen[str | None]):
     cancelled.
     """
 
+    HELP_TITLE = "note prompt"
     BINDINGS = [Binding("escape", "cancel", "Cancel")]
+    KEY_HELP = {"cancel": "cancel: nothing is written (enter writes the decision)"}
 
     def __init__(self, decision: str, record_id: str, run_label: str, required_reason: str = "") -> None:
         super().__init__()

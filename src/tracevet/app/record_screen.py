@@ -268,7 +268,7 @@ class RecordScreen(Screen):
             widget.update(self.plot_text(plot))
         units = inert_text(self.original.units or "units?", 8)
         line = Text(no_wrap=True, overflow="ellipsis")
-        line.append("averaged beat ", style="bold")
+        line.append(f"beat avg ({queue_view.beat_count(run.assessment, self.channel)} R) ", style="bold")
         line.append("orig ", style="dim")
         line.append("━━", style="rgb(230,159,0)")
         line.append(" clean ", style="dim")

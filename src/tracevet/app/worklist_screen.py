@@ -13,6 +13,7 @@ from tracevet.app.display import format_duration, inert_text, severity_text
 
 SORTS = ("flagged first", "id", "duration", "state")
 FILTERS = ("all", "to review", "flagged", "decided")
+AUTO_REFRESH_SECONDS = 15.0
 
 
 class WorklistScreen(Screen):
@@ -60,6 +61,12 @@ class WorklistScreen(Screen):
         table.add_column("holder", key="holder", width=9)
         table.add_column("last", key="last", width=8)
         self.action_refresh()
+        self.set_interval(AUTO_REFRESH_SECONDS, self.auto_refresh)
+
+    def auto_refresh(self) -> None:
+        """Pick up other reviewers' claims and decisions while the worklist is on screen."""
+        if self.is_current:
+            self.action_refresh()
 
     def on_screen_resume(self) -> None:
         """Coming back from a record: show what changed."""
