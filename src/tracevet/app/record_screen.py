@@ -117,15 +117,30 @@ class RecordScreen(Screen):
             self.app.claim(self.record_id)
         except TracevetError as exc:
             if type(exc).__name__ != "ClaimedByOther":
-                raise
+                self.give_up(exc.one_line())
+                return
             self.read_only = True
             self.holder_text = _claim_error_holder(exc)
             self.notify(f"read-only: {self.holder_text}", timeout=6)
         self.load_record()
 
+    def give_up(self, message: str) -> None:
+        """The record cannot be shown: say why (one line) and go back to the worklist."""
+        self.app.notify(f"cannot open {self.record_id}: {message}", severity="error", timeout=10)
+        if not self.read_only:
+            self.app.release_claim()
+        if self.is_current:
+            self.app.pop_screen()
+
     @work(thread=True, exclusive=True, group="load")
     def load_record(self) -> None:
         """Read the original, the runs and the current run (worker thread)."""
+        try:
+            self._load_record()
+        except TracevetError as exc:
+            self.app.call_from_thread(self.give_up, exc.one_line())
+
+    def _load_record(self) -> None:
         queue = self.app.queue
         summary = queue.record(self.record_id)
         original = queue.load_original(self.record_id)
@@ -421,7 +436,11 @@ class RecordScreen(Screen):
     def load_other_run(self, run_id: str) -> None:
         """Load another run in the background, then show it."""
         info = next(r for r in self.runs if str(r.run_id) == run_id)
-        run = queue_view.load_run(self.app.queue, self.record_id, info)
+        try:
+            run = queue_view.load_run(self.app.queue, self.record_id, info)
+        except TracevetError as exc:
+            self.app.call_from_thread(self.app.notify, f"cannot load {run_id}: {exc.one_line()}", severity="error")
+            return
         queue_view.pyramids_for(run, self.original, self.channel)
 
         def done() -> None:
