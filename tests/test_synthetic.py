@@ -191,6 +191,18 @@ def test_amplitude_and_reproducibility():
     assert a.units == "mV"
 
 
+def test_leads_sharing_the_rhythm_arguments_share_the_beats():
+    # Several channels of one recording: same seed and rhythm, other morphology.
+    from tracevet.synthetic import MCSHARRY_CODE_BEAT
+
+    a = synthetic_ecg(30.0, 500.0, heart_rate_bpm=80.0, ectopic_every=5, seed=4)
+    b = synthetic_ecg(30.0, 500.0, heart_rate_bpm=80.0, ectopic_every=5, seed=4,
+                      morphology=MCSHARRY_CODE_BEAT, amplitude_mv=0.6)
+    np.testing.assert_array_equal(a.r_peaks, b.r_peaks)
+    np.testing.assert_array_equal(a.beat_labels, b.beat_labels)
+    assert not np.allclose(a.signal, b.signal)
+
+
 def test_mcg_is_in_picotesla_with_a_larger_t_wave():
     # Adult MCG peaks about 50-100 pT (reference values, secondary history page).
     mcg = synthetic_mcg(20.0, 500.0, amplitude_pt=70.0, seed=3)

@@ -492,6 +492,14 @@ def synthetic_ecg(
     SyntheticECG
         Signal, R-peak indices, beat labels ('N', 'V') and P/Q/R/S/T wave centres.
 
+    Notes
+    -----
+    Beat times depend only on the rhythm arguments (rate, variability, LF/HF,
+    ectopic choice, prematurity) and ``seed``, not on ``morphology`` or the
+    amplitude: calls that share them give the same beats, so several leads of
+    one recording are made by changing only ``morphology`` / ``amplitude_mv``
+    (or by mixing :func:`synthetic_mcg` channels with the same arguments).
+
     Examples
     --------
     >>> rec = synthetic_ecg(10.0, 250.0, seed=1)
