@@ -93,3 +93,22 @@ def test_bad_limits_file_exits_2(run_cli, files, tmp_path):
     bad.write_text("flag_limits:\n  r-peak-change: {fail: lots}\n")
     code, out, err = run_cli("assess", files["original"], files["faithful"], "--limits", bad)
     assert code == 2 and "must be a number" in err and err.count("\n") == 1
+
+
+def test_denoise_with_assess_cleans_and_assesses_in_one_pass(run_cli, files, tmp_path):
+    out_file = tmp_path / "cleaned.npz"
+    json_file = tmp_path / "assessment.json"
+    code, out, err = run_cli("denoise", files["original"], out_file, "--assess", "--assess-json", json_file)
+    assert code in (0, 1), err
+    assert out_file.exists() and "cleaned " in out and "result:" in out
+    doc = json.loads(json_file.read_text())
+    assert set(doc) == {"metrics", "flags"}
+    assert code == (1 if any(f["severity"] == "fail" for f in doc["flags"]) else 0)
+
+
+def test_denoise_assess_json_path_checked_before_cleaning(run_cli, files, tmp_path):
+    out_file = tmp_path / "never.npz"
+    code, out, err = run_cli("denoise", files["original"], out_file, "--assess-json", tmp_path / "report.txt")
+    assert code == 2 and ".json" in err and not out_file.exists()
+    code, out, err = run_cli("denoise", files["original"], out_file, "--limits", tmp_path / "x.yaml")
+    assert code == 2 and "--assess" in err and not out_file.exists()

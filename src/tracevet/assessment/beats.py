@@ -15,10 +15,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-# Most beats used for a template: the median over a few thousand beats spread
+# Most beats used for a template: the median over a thousand beats spread
 # evenly over the record is as good as over all of them and keeps 24-hour
 # records within memory.
-MAX_TEMPLATE_BEATS = 3000
+MAX_TEMPLATE_BEATS = 1000
 # ... and at most this many window values per trace (memory at high rates).
 MAX_WINDOW_VALUES = 2_000_000
 # Consistency factor between the MAD and the standard deviation of a normal

@@ -32,10 +32,11 @@ def flat_runs_at_extremes(signal: np.ndarray, fs: float, min_ms: float = 4.0) ->
         return np.array([[0, signal.size]], dtype=np.int64) if signal.size >= min_run else np.empty((0, 2), np.int64)
     tol = 1e-7 * span
     runs = []
-    for mask in (signal >= hi - tol, signal <= lo + tol):
-        edges = np.diff(np.concatenate([[0], mask.view(np.int8), [0]]))
-        starts = np.flatnonzero(edges == 1)
-        ends = np.flatnonzero(edges == -1)
+    for where in (np.flatnonzero(signal >= hi - tol), np.flatnonzero(signal <= lo + tol)):
+        # Runs of consecutive indices (the candidates are few: no full-length masks kept).
+        breaks = np.flatnonzero(np.diff(where) != 1)
+        starts = where[np.concatenate([[0], breaks + 1])] if where.size else where
+        ends = where[np.concatenate([breaks, [where.size - 1]])] + 1 if where.size else where
         keep = (ends - starts) >= min_run
         runs.append(np.stack([starts[keep], ends[keep]], axis=1))
     return np.concatenate(runs).astype(np.int64)

@@ -158,6 +158,39 @@ def run(args: argparse.Namespace) -> int:
     return exit_code(result)
 
 
+def add_denoise_assess_arguments(parser: argparse.ArgumentParser) -> None:
+    """``tracevet denoise`` options that assess the cleaned result in the same pass."""
+    group = parser.add_argument_group("assessment of the result")
+    group.add_argument("--assess", action="store_true", help="assess the cleaned result against INPUT and print the report; exit 1 when a flag fails")
+    group.add_argument("--assess-json", metavar="FILE", help="write the assessment's JSON object (metrics and flags) to FILE (.json); implies --assess")
+    group.add_argument("--limits", metavar="FILE", help="YAML file with flag limits for the assessment (a flag_limits: mapping)")
+
+
+def check_denoise_assess_args(args: argparse.Namespace):
+    """Validate the assessment options of ``tracevet denoise`` before any work; return the limits."""
+    if args.limits and not (args.assess or args.assess_json):
+        raise InputError("--limits", "applies only with --assess or --assess-json")
+    if args.assess_json:
+        path = Path(args.assess_json)
+        if path.suffix.lower() != ".json":
+            raise InputError(args.assess_json, "the assessment file must end in .json")
+        if path.is_dir() or not (path.parent if str(path.parent) else Path(".")).is_dir():
+            raise InputError(args.assess_json, "is a folder or its folder does not exist")
+    return load_limits_file(args.limits) if args.limits else None
+
+
+def assess_after_denoise(args: argparse.Namespace, original: Recording, cleaned: Recording, limits) -> int:
+    """Assess a fresh cleaning (``tracevet denoise --assess``); print the report, write JSON if asked."""
+    from tracevet.assessment import assess
+
+    result = assess(original, cleaned, limits=limits)
+    if args.assess_json:
+        write_text_atomic(args.assess_json, json_text(result) + "\n")
+    report_args = argparse.Namespace(original=args.input, cleaned=args.output)
+    sys.stdout.write(report_text(result, original, report_args) + "\n")
+    return exit_code(result)
+
+
 def register(subparsers) -> argparse.ArgumentParser:
     """Add the ``assess`` command to the ``tracevet`` parser."""
     parser = subparsers.add_parser(

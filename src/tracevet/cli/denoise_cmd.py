@@ -26,6 +26,7 @@ from tracevet.cleaning import (
     apply_overrides,
     load_profile,
 )
+from tracevet.cli import assess_cmd
 from tracevet.errors import InputError
 from tracevet.recording import KINDS, Recording, SUPPORTED_READ, SUPPORTED_WRITE, read_recording, write_recording
 from tracevet.text import inert
@@ -139,6 +140,7 @@ def run(args: argparse.Namespace) -> int:
     if args.input is None or args.output is None:
         raise InputError("tracevet denoise", "needs INPUT and OUTPUT (see 'tracevet denoise --help')")
     output = check_output_path(args.output, args.input)
+    assess_limits = assess_cmd.check_denoise_assess_args(args)
     from tracevet.cleaning import clean  # the engine (and SciPy) only when a record is cleaned
 
     recording = read_input(args)
@@ -148,6 +150,8 @@ def run(args: argparse.Namespace) -> int:
         f"cleaned {inert(args.input)} -> {inert(args.output)}: {cleaned.n_channels} channel(s), "
         f"{cleaned.n_samples} samples at {cleaned.fs:g} Hz, settings {settings.digest()[:12]}"
     )
+    if args.assess or args.assess_json:
+        return assess_cmd.assess_after_denoise(args, recording, cleaned, assess_limits)
     return 0
 
 
@@ -168,5 +172,6 @@ def register(subparsers) -> argparse.ArgumentParser:
     add_input_arguments(parser)
     parser.add_argument("output", metavar="OUTPUT", nargs="?", help=f"where to write the cleaned recording ({', '.join(SUPPORTED_WRITE)})")
     add_settings_arguments(parser)
+    assess_cmd.add_denoise_assess_arguments(parser)
     parser.set_defaults(func=run)
     return parser
