@@ -388,8 +388,7 @@ async def test_a_damaged_record_is_refused_and_the_app_stays_up(queue_dir):
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
         app.screen.open_record(record_id)
-        await pilot.pause(0.3)
+        await wait_for(pilot, lambda: any(f"cannot open {record_id}" in str(n.message) for n in app._notifications))
         await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
-        assert any(f"cannot open {record_id}" in str(n.message) for n in app._notifications)
         assert not Queue.open(queue_dir).claims()  # the claim was given back
         await pilot.press("down")  # still answering keys
