@@ -180,3 +180,15 @@ def test_the_index_catches_up_with_decisions_it_missed(tmp_path):
     queue.paths.journal.write_bytes(before)  # as if the writer died before updating the index
     assert {r.id: r.state for r in queue.records()}[ids[1]] == "rejected"
     assert queue.verify() == []
+
+
+def test_listing_works_from_the_files_when_the_index_is_gone(tmp_path):
+    queue, ids = queue_with_runs(tmp_path)
+    queue.decide(ids[2], "reject", "flat line", "mira")
+    queue.paths.index.unlink(missing_ok=True)
+    queue.paths.journal.unlink(missing_ok=True)
+    assert {r.id: r.state for r in queue.records()} == {ids[0]: "to-review", ids[1]: "to-review", ids[2]: "rejected"}
+    assert queue.paths.index.exists()  # written back for the next reader
+    queue.paths.index.write_text('{"version": 1, "log_size": 0, "records": {}}')
+    queue.paths.journal.write_text("")
+    assert {r.id: r.state for r in queue.records()}[ids[2]] == "rejected"

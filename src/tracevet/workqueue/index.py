@@ -163,8 +163,8 @@ class Index:
                 log_size = max(log_size, int(item.get("log_size", log_size))) if log_size >= 0 else log_size
             except (ValueError, KeyError, TypeError):
                 damaged.append(f"index.journal line {number} unreadable")
-        if catch_up and not records and list_record_ids(paths):
-            # no usable index at all (deleted or never written): build it from the files
+        if catch_up and (log_size < 0 or (not records and list_record_ids(paths))):
+            # no usable index (damaged, deleted or never written): build it from the files
             fresh, _problems = rebuild(paths)
             fresh.damaged = damaged or ["index missing"]
             fresh.dirty.update(fresh.records)
@@ -201,36 +201,35 @@ class Index:
             self._apply_entries(paths, entries)
         self.log_size = actual
         on_disk = list_record_ids(paths)
-        known = set(self.records)
-        for record_id in on_disk:
-            if record_id not in known:
-                self._read_in(paths, record_id)
+        missing = [r for r in on_disk if r not in self.records]
+        if missing:
+            self._read_in(paths, missing)
         present = set(on_disk)
         for record_id in list(self.records):
             if record_id not in present:
                 del self.records[record_id]
                 self.removed.add(record_id)
 
-    def _read_in(self, paths: QueuePaths, record_id: str) -> None:
-        try:
-            self.records[record_id] = summary_from_files(paths, record_id, None)
-        except Exception:  # an unreadable record folder is reported by verify, not here
-            return
-        self.dirty.add(record_id)
-        # its decisions, if any, are further back in the log
-        for entry in read_log(paths.log).entries:
-            if entry.record == record_id and entry.event == "decision":
-                self.records[record_id]["last_decision"] = decision_summary(entry)
+    def _read_in(self, paths: QueuePaths, record_ids: list[str]) -> None:
+        """Add record folders the index did not know, with their decisions (one pass over the log)."""
+        added = set()
+        for record_id in record_ids:
+            try:
+                self.records[record_id] = summary_from_files(paths, record_id, None)
+            except Exception:  # an unreadable record folder is reported by verify, not here
+                continue
+            added.add(record_id)
+            self.dirty.add(record_id)
+        if added:
+            for entry in read_log(paths.log).entries:
+                if entry.record in added and entry.event == "decision":
+                    self.records[entry.record]["last_decision"] = decision_summary(entry)
 
     def _apply_entries(self, paths: QueuePaths, entries: list[LogEntry]) -> None:
         for entry in entries:
             record_id = entry.record
-            if not isinstance(record_id, str):
-                continue
-            if record_id not in self.records:
-                if entry.event == "add" and paths.record_meta(record_id).exists():
-                    self._read_in(paths, record_id)
-                continue
+            if not isinstance(record_id, str) or record_id not in self.records:
+                continue  # records the index does not know are read in from their folders
             if entry.event == "decision":
                 self.records[record_id]["last_decision"] = decision_summary(entry)
                 self.dirty.add(record_id)
