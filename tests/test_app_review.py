@@ -124,10 +124,11 @@ async def test_review_session_writes_exactly_the_decisions_to_the_log(queue_dir)
         # reject: refused without a note, written with one
         rejected = app.screen.record_id
         rejected_run = app.screen.shown_run_id
-        await pilot.press("x", "enter")
-        await pilot.pause(0.1)
+        await pilot.press("x")
+        await wait_for(pilot, lambda: type(app.screen).__name__ == "NoteScreen")
+        await pilot.press("enter")
+        await wait_for(pilot, lambda: "refused" in screen_text(app))
         assert type(app.screen).__name__ == "NoteScreen"  # still asking
-        assert "refused" in screen_text(app)
         assert len(decision_entries(queue)) == 1  # nothing written
         await type_text(pilot, "drift")
         await pilot.press("enter")
@@ -246,6 +247,7 @@ async def test_every_panel_fits_the_terminal(queue_dir, size):
             assert label in text
         assert all(cell_len(line) <= width for line in text.split("\n"))
         await pilot.press("question_mark")
+        await wait_for(pilot, lambda: type(app.screen).__name__ == "HelpScreen")
         await pilot.pause(0.1)
         _assert_inside(app, ["#help-box"], width, height)
         assert "Keys: record screen" in screen_text(app)
@@ -262,8 +264,7 @@ async def test_hostile_names_and_notes_are_shown_inert(queue_dir):
         text = screen_text(app)
         assert "ch\\x1b[2J[blink]1[/blink]" in text  # channel name, escaped and unstyled
         await pilot.press("i", "i")  # the run panel names the file the record came from
-        await pilot.pause(0.1)
-        assert "from evil \\x1b[31m[bold red]x.npz" in screen_text(app)
+        await wait_for(pilot, lambda: "from evil \\x1b[31m[bold red]x.npz" in screen_text(app))
         await pilot.press("a")
         await wait_for(pilot, lambda: type(app.screen).__name__ == "NoteScreen")
         note_box = app.screen.query_one("#note-input")
@@ -274,7 +275,7 @@ async def test_hostile_names_and_notes_are_shown_inert(queue_dir):
         await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
         table = app.screen.query_one("#worklist-table")
         table.move_cursor(row=[r.id for r in app.screen.visible_records()].index(hostile_id))
-        await pilot.pause(0.1)
+        await wait_for(pilot, lambda: "pwned" in screen_text(app))
         text = screen_text(app)
         assert "evil \\x1b[31m[bold red]x.npz" in text  # file name shown as typed, ESC made visible
         assert "\\x1b[2J\\x1b]0;pwned\\x07 [bold]markup[/]" in text  # note: escapes visible, markup literal
@@ -331,8 +332,7 @@ async def test_rerun_can_be_cancelled_and_leaves_nothing_behind(queue_dir):
         await pilot.press("r")
         await wait_for(pilot, lambda: type(app.screen).__name__ == "RerunScreen")
         await pilot.press("ctrl+r")
-        await pilot.pause(0.05)
-        assert app.screen.running
+        await wait_for(pilot, lambda: app.screen.running)
         await pilot.press("escape")
         await wait_for(pilot, lambda: not app.screen.running)
         assert "cancelled: no run was added" in screen_text(app)
@@ -353,14 +353,14 @@ async def test_help_lists_every_key_of_the_screen_and_the_caution(queue_dir):
                 await wait_for(pilot, lambda: record_ready(app))
             below = app.screen
             await pilot.press("f1")
+            await wait_for(pilot, lambda: type(app.screen).__name__ == "HelpScreen")
             await pilot.pause(0.1)
             text = " ".join(screen_text(app).replace("┃", " ").split())
             for keys, what in binding_lines(below) + binding_lines(app):
                 assert f"{keys} {' '.join(what.split())}" in text, (keys, what)
             assert "not a medical device and does not diagnose" in text
             await pilot.press("escape")
-            await pilot.pause(0.05)
-            assert app.screen is below
+            await wait_for(pilot, lambda: app.screen is below)
 
 
 async def test_no_color_keeps_severity_words_and_draws_plain_plots(queue_dir, monkeypatch):
