@@ -174,6 +174,11 @@ def _remove_slow_trend(removed: np.ndarray, iso: slice, fs: float) -> np.ndarray
     return removed - values @ basis
 
 
+def _at_limit(onset: float, offset: float, r: int, before: int, after: int, size: int) -> bool:
+    """True when a QRS bound sits at the end of its search range."""
+    return onset <= max(0, r - before) + 1e-9 or offset >= min(size, r + after + 1) - 1 - 1e-9
+
+
 def _slope_noise(removed: np.ndarray, fs: float) -> float:
     """Typical s.e. of the template slope, from the beat-to-beat spread of the removed part."""
     slopes = np.gradient(_smooth_rows_same(removed, int(round(SLOPE_SMOOTH_S * fs))), axis=1)
@@ -310,6 +315,10 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     for fraction in (0.04, 0.05, 0.06, 0.07, 0.08):
         on_x, off_x = qrs_bounds(slope_x, fid.r, max(fraction * steep_x, floor), before, after, fs)
         on_y, off_y = qrs_bounds(slope_y, r_y, max(fraction * steep_y, floor), before, after, fs)
+        # A bound at the end of its search range was not found (the QRS runs
+        # into the T or P wave at this threshold): that threshold says nothing.
+        if _at_limit(on_x, off_x, fid.r, before, after, x_t.size) or _at_limit(on_y, off_y, r_y, before, after, x_t.size):
+            continue
         changes.append(((off_y - on_y) - (off_x - on_x)) / fs * 1000.0)
         # Crossing-time error = slope noise / rate of change of the slope there.
         parts = []
@@ -319,8 +328,8 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
             parts.append((float(sigma_slope[i]) / c) ** 2 if c > 0 else float("inf"))
         allows.append(k * np.sqrt(2.0 * sum(parts)) / fs * 1000.0)
     metrics["qrs_width_ms"] = (fid.offset - fid.onset) / fs * 1000.0
-    metrics["qrs_width_change_ms"] = float(np.median(changes)) if amp_x > 0 else None
-    allowance["qrs_width_change_ms"] = float(np.median(allows))
+    metrics["qrs_width_change_ms"] = float(np.median(changes)) if (amp_x > 0 and changes) else None
+    allowance["qrs_width_change_ms"] = float(np.median(allows)) if allows else float("inf")
 
     # ST level change.
     st_x = float(np.mean(x_t[fid.st])) - iso_x

@@ -42,19 +42,14 @@ def flat_runs_at_extremes(signal: np.ndarray, fs: float, min_ms: float = 4.0) ->
     return np.concatenate(runs).astype(np.int64)
 
 
-def ahead_residual(values: np.ndarray, length: int) -> np.ndarray:
-    """``values[i]`` minus the mean of ``values[i : i + length]`` (shorter near the end).
-
-    A one-sided local mean: at the start of a trace it is the natural
-    reference, and the same operator applied inside the trace gives a fair
-    comparison (slopes bias both alike). Cumulative sums; no loop.
-    """
-    v = np.asarray(values, dtype=np.float64)
-    n = v.size
-    c = np.concatenate([[0.0], np.cumsum(v)])
-    start = np.arange(n)
-    stop = np.minimum(start + length, n)
-    return v - (c[stop] - c[start]) / (stop - start)
+def _bend(rows: np.ndarray, smooth: int) -> np.ndarray:
+    """Peak-to-peak of each row after a moving average of ``smooth`` samples and its straight line removed."""
+    rows = _smooth_rows(rows, smooth)
+    m = rows.shape[1]
+    t = np.arange(m, dtype=np.float64) - (m - 1) / 2.0
+    centred = rows - rows.mean(axis=1, keepdims=True)
+    flat = centred - np.outer(centred @ t / float(t @ t), t)
+    return np.ptp(flat, axis=1)
 
 
 def _smooth_rows(rows: np.ndarray, width: int) -> np.ndarray:
@@ -71,14 +66,15 @@ def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tupl
 
     Two views of the removed component (original minus cleaned) over the
     first and last 0.5 s, each compared with the same view of the interior
-    (up to 2000 windows spread evenly, 95th percentile); the larger excess is
-    returned:
+    (up to 2000 windows spread evenly); the larger excess is returned:
 
-    * peak-to-peak (slow edge drifts);
-    * largest deviation (after a 40 ms moving average against noise) from
-      the mean of the next 0.3 s, looking inward from the edge (fast
-      transients, which baseline wander taken out in the interior would hide
-      in the first view).
+    * peak-to-peak, against the largest interior value (slow edge drifts;
+      baseline wander removed inside the record can be as steep as at an
+      edge, so only a drift beyond anything inside counts);
+    * peak-to-peak after a 40 ms moving average (against noise) and with the
+      window's straight line removed, against the 95th percentile: the bend
+      of a fast transient, which baseline wander taken out in the interior
+      (nearly straight over 0.5 s) would hide in the first view.
 
     A cleaning that behaves at the edges as inside gives a value at or below
     zero (common practice).
@@ -91,7 +87,6 @@ def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tupl
     """
     n = original.size
     width = max(8, int(round(EDGE_WINDOW_S * fs)))
-    ahead = max(2, int(round(0.3 * fs)))
     n_windows = n // width
     if n_windows < 4:
         return None, []
@@ -100,28 +95,14 @@ def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tupl
         interior = interior[np.linspace(0, interior.size - 1, MAX_INTERIOR_WINDOWS).round().astype(np.int64)]
     idx = interior[:, None] * width + np.arange(width)[None, :]
     inner = original[idx].astype(np.float64) - cleaned[idx].astype(np.float64)
-    ref_raw = float(np.percentile(np.ptp(inner, axis=1), 95))
-    # One-sided residuals of the interior windows, looking forward and backward.
-    long_idx = interior[:, None] * width + np.arange(width + ahead)[None, :]
-    long_idx = np.minimum(long_idx, n - 1)
-    longer = original[long_idx].astype(np.float64) - cleaned[long_idx].astype(np.float64)
-    c = np.concatenate([np.zeros((longer.shape[0], 1)), np.cumsum(longer, axis=1)], axis=1)
-    fwd = longer[:, :width] - (c[:, ahead : ahead + width] - c[:, :width]) / ahead
+    ref_raw = float(np.max(np.ptp(inner, axis=1)))
     smooth = max(1, int(round(0.04 * fs)))
-    fwd = _smooth_rows(fwd, smooth)
-    ref_fast = float(np.percentile(np.max(np.abs(fwd), axis=1), 95))
+    ref_bend = float(np.percentile(_bend(inner, smooth), 95))
     edges = [(0, width), (n - width, n)]
     values = []
     for start, end in edges:
-        part = original[start:end].astype(np.float64) - cleaned[start:end].astype(np.float64)
-        if start == 0:
-            seg = original[: width + ahead].astype(np.float64) - cleaned[: width + ahead]
-            res = ahead_residual(seg, ahead)[:width]
-        else:
-            seg = original[n - width - ahead :].astype(np.float64) - cleaned[n - width - ahead :]
-            res = ahead_residual(seg[::-1], ahead)[:width]
-        res = _smooth_rows(res[None, :], smooth)[0]
-        values.append(max(float(np.ptp(part)) - ref_raw, float(np.max(np.abs(res))) - ref_fast))
+        part = (original[start:end].astype(np.float64) - cleaned[start:end].astype(np.float64))[None, :]
+        values.append(max(float(np.ptp(part)) - ref_raw, float(_bend(part, smooth)[0]) - ref_bend))
     return max(values), [edge for edge, value in zip(edges, values) if value > 0]
 
 
