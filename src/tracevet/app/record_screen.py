@@ -518,6 +518,7 @@ class RecordScreen(Screen):
                 self.previous_run_id = self.shown_run_id
                 self.panel = "compare" if self.previous_run_id else "flags"
                 self.runs = list(self.app.queue.runs(self.record_id))
+                self.current_run_id = str(getattr(self.app.queue.record(self.record_id), "current_run_id", None) or new_run_id)
                 self.show_run(str(new_run_id))
 
         source_run = run.run_id if run is not None else ""

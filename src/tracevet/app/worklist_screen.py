@@ -103,10 +103,11 @@ class WorklistScreen(Screen):
         waiting = sum(1 for r in self.records if queue_view.matches_filter(r, "to review"))
         status = Text.assemble(
             ("queue ", "dim"),
-            inert_text(queue_view.queue_name(self.app.queue), 30),
+            inert_text(queue_view.queue_name(self.app.queue), 50),
             ("  reviewer ", "dim"),
-            inert_text(self.app.reviewer, 20),
-            (f"  {len(rows)}/{len(self.records)} shown, {waiting} to review", ""),
+            inert_text(self.app.reviewer, 30),
+            "\n",
+            (f"{len(rows)} of {len(self.records)} shown, {waiting} to review", "bold"),
             ("  sort: ", "dim"),
             SORTS[self.sort_index],
             ("  filter: ", "dim"),
