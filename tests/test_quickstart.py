@@ -69,3 +69,58 @@ def test_demo_queue_verifies_and_originals_are_read_only(demo_queue):
     # The log holds no decisions yet: the demo only adds and cleans.
     decisions = [json.loads(line) for line in (path / "decisions.jsonl").read_text().splitlines()]
     assert not any(entry.get("decision") in {"accept", "reject"} for entry in decisions)
+
+
+def test_review_without_a_queue_argument_fills_the_empty_default_queue(tmp_path, run_cli, monkeypatch):
+    # First run: the default queue (here redirected with $TRACEVET_QUEUE) holds only its README,
+    # so 'tracevet review' builds the demo into it before opening the app. Without a terminal the
+    # app itself refuses to start, with one line, after the queue has been filled.
+    default = tmp_path / "queue"
+    default.mkdir()
+    (default / "README.md").write_text("embedded default queue\n")
+    monkeypatch.setenv("TRACEVET_QUEUE", str(default))
+    code, _, err = run_cli("review", "--reviewer", "mira")
+    assert code == 2 and "interactive terminal" in err
+    assert len(Queue.open(default).records()) == len(demo.SCENARIO)
+    assert (default / "README.md").read_text() == "embedded default queue\n"
+
+
+async def test_first_review_decision_through_the_app(demo_queue, tmp_path):
+    import shutil
+
+    from tracevet.app.app import ReviewApp
+    from tracevet.app.record_screen import RecordScreen
+    from tracevet.app.worklist_screen import WorklistScreen
+
+    path = tmp_path / "queue"
+    shutil.copytree(demo_queue[0], path)
+    queue = Queue.open(path)
+    app = ReviewApp(queue, "mira", colour=False)
+
+    async def until(condition, timeout=20.0):
+        waited = 0.0
+        while not condition():
+            assert waited < timeout, "the app did not get there in time"
+            await pilot.pause(0.05)
+            waited += 0.05
+
+    async with app.run_test(size=(100, 30)) as pilot:
+        await until(lambda: isinstance(app.screen, WorklistScreen))
+        await pilot.press("n")  # the next record that needs review
+        await until(lambda: isinstance(app.screen, RecordScreen) and app.screen.shown_run is not None)
+        record_id, run_id = app.screen.record_id, app.screen.shown_run_id
+        await pilot.press("a")
+        await until(lambda: type(app.screen).__name__ == "NoteScreen")
+        for key in ("s", "e", "e", "n", "space", "o", "k"):
+            await pilot.press(key)
+        await pilot.press("enter")
+        await until(lambda: any(e.event == "decision" for e in Queue.open(path).log_entries()))
+    (entry,) = [e for e in Queue.open(path).log_entries() if e.event == "decision"]
+    assert (entry.record, entry.run, entry.decision, entry.note, entry.reviewer) == (
+        record_id, run_id, "accept", "seen ok", "mira",
+    )
+    assert Queue.open(path).record(record_id).state == "accepted"
+    # The entry carries the checksums of the exact bytes signed off.
+    assert entry.get("original_sha256") == Queue.open(path).record_meta(record_id)["original_sha256"]
+    assert len(entry.get("cleaned_sha256", "")) == 64
+    assert Queue.open(path).verify() == []
