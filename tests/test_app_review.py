@@ -392,3 +392,25 @@ async def test_a_damaged_record_is_refused_and_the_app_stays_up(queue_dir):
         await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
         assert not Queue.open(queue_dir).claims()  # the claim was given back
         await pilot.press("down")  # still answering keys
+
+
+async def test_a_lapsed_claim_taken_over_turns_the_open_record_read_only(queue_dir):
+    import json
+
+    app = ReviewApp(Queue.open(queue_dir), "mira", colour=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("n")
+        await wait_for(pilot, lambda: record_ready(app))
+        record_id = app.screen.record_id
+        claim_file = queue_dir / "claims" / f"{record_id}.json"
+        claim = json.loads(claim_file.read_text())
+        claim["last_activity"] = "2000-01-01T00:00:00Z"  # mira went idle long ago
+        claim_file.write_text(json.dumps(claim))
+        Queue.open(queue_dir).claim(record_id, "jonas", bind_process=False)  # the take-over is logged
+        app.touch_held_claim()
+        await wait_for(pilot, lambda: "READ-ONLY held by jonas" in screen_text(app))
+        await pilot.press("a")
+        await pilot.pause(0.1)
+        assert isinstance(app.screen, RecordScreen)  # no note prompt: nothing can be decided
+    events = [e.event for e in Queue.open(queue_dir).log_entries()]
+    assert "takeover" in events and "decision" not in events

@@ -8,6 +8,9 @@ from pathlib import Path
 from textual.app import App
 from textual.binding import Binding
 
+from tracevet.errors import TracevetError
+from tracevet.text import inert
+
 from tracevet.app.display import CAUTION  # noqa: F401 - re-exported for the CLI
 from tracevet.app.worklist_screen import WorklistScreen
 
@@ -78,12 +81,23 @@ class ReviewApp(App):
                 self.notify(f"could not release the claim: {type(exc).__name__}", severity="warning")
 
     def touch_held_claim(self) -> None:
-        """Tell the queue the reviewer is still working on the held record."""
-        if self.held_claim is not None:
-            try:
-                self.queue.touch_claim(self.held_claim, self.reviewer)
-            except Exception as exc:
-                self.notify(f"claim on the open record lapsed: {type(exc).__name__}", severity="error")
+        """Tell the queue the reviewer is still working on the held record.
+
+        If the claim was taken over meanwhile (it had lapsed), the open
+        record turns read-only and says who holds it now.
+        """
+        if self.held_claim is None:
+            return
+        try:
+            self.queue.touch_claim(self.held_claim, self.reviewer)
+        except TracevetError as exc:
+            self.held_claim = None
+            holder = getattr(exc, "holder", None)
+            who = holder.describe() if holder is not None and hasattr(holder, "describe") else "another reviewer"
+            lose = getattr(self.screen, "lose_claim", None)
+            if lose is not None:
+                lose(who)
+            self.notify(f"this record was taken over: {inert(who, 120)}", severity="error", timeout=10)
 
     def on_unmount(self) -> None:
         """Leave nothing claimed behind."""

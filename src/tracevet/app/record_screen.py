@@ -132,6 +132,12 @@ class RecordScreen(Screen):
         if self.is_current:
             self.app.pop_screen()
 
+    def lose_claim(self, holder_text: str) -> None:
+        """Another reviewer took the record over: continue read-only."""
+        self.read_only = True
+        self.holder_text = holder_text
+        self.update_title()
+
     @work(thread=True, exclusive=True, group="load")
     def load_record(self) -> None:
         """Read the original, the runs and the current run (worker thread)."""
