@@ -33,7 +33,7 @@ def _local_extrema(x: np.ndarray, start: int, stop: int):
     return start + inner[is_max], start + inner[is_min]
 
 
-@settings(max_examples=300, deadline=None)
+@settings(max_examples=200, deadline=None)
 @given(traces_and_windows())
 def test_reduction_keeps_every_local_maximum_and_minimum_of_the_window(case):
     data, start, stop, n_bins, factor = case
@@ -56,7 +56,7 @@ def test_reduction_keeps_every_local_maximum_and_minimum_of_the_window(case):
                 assert data[i] in drawn
 
 
-@settings(max_examples=300, deadline=None)
+@settings(max_examples=200, deadline=None)
 @given(traces_and_windows())
 def test_reduction_matches_brute_force_min_max_per_bin(case):
     data, start, stop, n_bins, factor = case

@@ -12,6 +12,7 @@ from tracevet.app.plots import (
     TracePyramids,
     flag_strip,
     format_clock,
+    format_value,
     render_beat_overlay,
     render_trace_plots,
 )
@@ -95,3 +96,15 @@ def test_flag_strip_handles_a_day_of_flagged_beats_and_finds_the_next_one():
     assert regions.next_start(0.0) == 0.8
     assert regions.next_start(0.8, backwards=True) == 0.0
     assert regions.next_start(86399.9) is None
+
+
+def test_tick_labels_fit_their_column_for_any_scale():
+    orig, clean = _spiky(2500, 250.0)
+    for scale in (1e-7, 1e-3, 1.0, 1e4, -1e6):
+        traces = TracePyramids.from_arrays(orig * scale, clean * scale, 250.0)
+        out = render_trace_plots(traces, 0, 10, 70, (3, 3, 4), colour=False)
+        for plot in out.plots:
+            for line in plot.text.split("\n"):
+                assert cell_len(line) <= 70
+                assert line[CANVAS_OFFSET - 1] == " "  # the label column never runs into the canvas
+        assert len(format_value(-123456789.0)) <= CANVAS_OFFSET - 1

@@ -176,15 +176,24 @@ def format_clock(seconds: float, span_s: float | None = None) -> str:
     return f"{sign}{h}:{m:02d}:{tail}" if h else f"{sign}{m}:{tail}"
 
 
-def format_value(value: float) -> str:
-    """Format an amplitude compactly (4 significant digits, no exponent for common sizes)."""
+def format_value(value: float, width: int = Y_LABEL_WIDTH - 1) -> str:
+    """Format an amplitude compactly: 4 significant digits when they fit in ``width`` characters.
+
+    Falls back to fewer digits, then to exponent form, so a tick label never
+    exceeds ``width`` (fixed-width labels keep stacked plots aligned).
+    """
     if value == 0 or not math.isfinite(value):
-        return f"{value:g}"
+        return f"{value:g}"[:width]
     magnitude = abs(value)
-    if 1e-3 <= magnitude < 1e5:
+    candidates = []
+    if 1e-3 <= magnitude < 1e6:
         digits = max(0, 3 - int(math.floor(math.log10(magnitude))))
-        return f"{value:.{min(digits, 4)}f}"
-    return f"{value:.2e}"
+        candidates += [f"{value:.{d}f}" for d in range(min(digits, 4), -1, -1)]
+    candidates += [f"{value:.{d}e}".replace("e+0", "e+").replace("e-0", "e-") for d in (2, 1, 0)]
+    for text in candidates:
+        if len(text) <= width and float(text) != 0:
+            return text
+    return candidates[-1][:width]
 
 
 def nice_ticks(low: float, high: float, max_ticks: int) -> np.ndarray:
