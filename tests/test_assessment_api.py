@@ -182,3 +182,10 @@ def test_load_refuses_missing_or_damaged_files(tmp_path):
     (tmp_path / "assessment.json").write_text("{not json")
     with pytest.raises(InputError):
         Assessment.load(tmp_path)
+
+
+def test_assessment_never_changes_its_inputs(pair):
+    original, cleaned, peaks = pair
+    before_o, before_c = original.samples.copy(), cleaned.samples.copy()
+    assess(original, cleaned, detector=_detector(peaks))
+    assert np.array_equal(original.samples, before_o) and np.array_equal(cleaned.samples, before_c)

@@ -45,8 +45,8 @@ SOURCE_TIMING = (
     "500 Hz sampling, from memory)"
 )
 SOURCE_RINGING = (
-    "Rijnbeek, Kors & Witsenburg 2001 (Circulation 104:3087): amplitude errors of 25 uV matter; "
-    "relative form: common practice"
+    "Rijnbeek, Kors & Witsenburg 2001 (Circulation 104:3087): amplitude errors of the order of 25 uV "
+    "matter; relative form: common practice"
 )
 SOURCE_WAVES = "common practice: P and T amplitudes are read to about 0.05 mV on 0.1-0.5 mV waves"
 SOURCE_REMOVED = "common practice: the removed component of a faithful cleaning carries no heartbeat shape"
@@ -102,7 +102,7 @@ _DEFAULTS: tuple[LimitSpec, ...] = (
     LimitSpec("st-level-change", 0.05, 0.10, "mV", SOURCE_ST, True, 0.05, 0.10),
     LimitSpec("p-wave-change", 0.20, 0.30, "fraction", SOURCE_WAVES),
     LimitSpec("t-wave-change", 0.20, 0.30, "fraction", SOURCE_WAVES),
-    LimitSpec("ringing", 0.015, 0.025, "mV", SOURCE_RINGING, True, 0.015, 0.025),
+    LimitSpec("ringing", 0.015, 0.020, "mV", SOURCE_RINGING, True, 0.015, 0.020),
     LimitSpec("removed-beat-structure", 0.10, 0.15, "fraction", SOURCE_REMOVED),
     LimitSpec("beat-shape-change", 15.0, 22.0, "%", SOURCE_SHAPE),
     LimitSpec("clipping", None, 0.0, "runs", SOURCE_CLIPPING),

@@ -212,8 +212,9 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
       against the original template with its isoelectric level removed
       (common practice; see :func:`prd`). ``rmse``, ``correlation``: same pair.
     * ``r_amplitude_ratio``: cleaned R amplitude (largest same-polarity
-      deviation within +-25 ms of the original R) over the original one, both
-      above their own isoelectric level (common practice).
+      deviation within +-25 ms of the original R) over the original
+      template's value at the same sample, both above their own isoelectric
+      level (common practice).
     * ``r_timing_shift_ms``: cross-correlation lag of the cleaned QRS against
       the original QRS, positive when the cleaned beat is late.
     * ``qrs_width_change_ms``: QRS width (outermost 12 %-of-R crossings, see
@@ -274,9 +275,14 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
 
     # R amplitude.
     reach = max(1, int(round(0.025 * fs)))
-    _, amp_y = _peak_near(dev_y, fid.r, reach, fid.polarity)
+    # Both amplitudes are read at the cleaned template's peak. The cleaned
+    # template (original minus the removed median) carries little noise, so
+    # its peak position does not depend on the original's noise; reading the
+    # original at its own noisiest maximum would bias the ratio low.
+    r_y, amp_y = _peak_near(dev_y, fid.r, reach, fid.polarity)
+    amp_x_at = fid.polarity * float(dev_x[r_y])
     if amp_x > 0:
-        ratio = amp_y / amp_x
+        ratio = amp_y / amp_x_at if amp_x_at > 0.5 * amp_x else amp_y / amp_x
         metrics["r_amplitude_ratio"] = ratio
         se = float(median_standard_error(removed[:, fid.r] - per_beat_iso))
         allowance["r_amplitude_ratio"] = k * se / amp_x
@@ -358,8 +364,9 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
         # resolution of the template (3 s.e. and 3 % of R).
         if amp_wave <= max(3.0 * se, 0.03 * amp_x):
             continue
-        _, kept = _peak_near(sm_y, index, wave_reach, polarity)
-        metrics[key] = kept / amp_wave
+        at, kept = _peak_near(sm_y, index, wave_reach, polarity)
+        at_x = polarity * float(sm_x[at])
+        metrics[key] = kept / at_x if at_x > 0.5 * amp_wave else kept / amp_wave
         allowance[key] = k * se / amp_wave
 
     # Energy measures use the mean removed template: its noise energy is
