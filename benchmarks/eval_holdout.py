@@ -204,16 +204,20 @@ def anatomy(ref: np.ndarray, centres: np.ndarray, fs: float, rr_s: float) -> dic
             break
     on = on if on is not None else r - int(0.05 * fs)
     w10 = max(2, int(0.01 * fs))
-    lo_iso = max(0, on - int(0.06 * fs))
-    cand = np.arange(lo_iso, max(lo_iso + 1, on - int(0.004 * fs) - w10))
+    # P first, against the level at QRS onset; the isoelectric window is then the
+    # flattest 10 ms between the P wave and the QRS onset (so at high rates,
+    # where the PR segment is short, it does not sit on the P wave).
+    p_lo, p_hi = max(0, r - int(min(0.3, 0.4 * rr_s) * fs)), on - int(0.015 * fs)
+    rough_dev = _smooth(tmpl - tmpl[on], int(0.02 * fs))
+    p = p_lo + int(np.argmax(np.abs(rough_dev[p_lo:p_hi]))) if p_hi - p_lo > 3 else None
+    lo_iso = max(0, on - int(0.06 * fs)) if p is None else p + int(round(0.4 * (on - p)))
+    cand = np.arange(lo_iso, max(lo_iso + 1, on - int(0.004 * fs) - w10 + 1))
     cost = np.array([slope[k : k + w10].mean() for k in cand])
     iso = int(cand[int(np.argmin(cost))])
     level = float(tmpl[iso : iso + w10].mean())
     dev = _smooth(tmpl - level, int(0.02 * fs))
     t_lo, t_hi = j + int(0.04 * fs), min(tmpl.size - 1, r + int(min(0.45, 0.6 * rr_s) * fs))
     t = t_lo + int(np.argmax(np.abs(dev[t_lo:t_hi]))) if t_hi - t_lo > 3 else None
-    p_lo, p_hi = max(0, r - int(min(0.3, 0.4 * rr_s) * fs)), on - int(0.015 * fs)
-    p = p_lo + int(np.argmax(np.abs(dev[p_lo:p_hi]))) if p_hi - p_lo > 3 else None
     r_amp = float(tmpl[r] - level)
 
     def half_width(k):
@@ -808,7 +812,7 @@ def sources(quick: bool):
 # --------------------------------------------------------------------------- running
 
 
-KEY_METRICS = ("r_amplitude_ratio", "st_change", "qrs_width_change_ms", "r_timing_shift_ms", "p_amplitude_ratio",
+KEY_METRICS = ("heart_rate_bpm", "qrs_width_ms", "r_amplitude_ratio", "st_change", "qrs_width_change_ms", "r_timing_shift_ms", "p_amplitude_ratio",
                "t_amplitude_ratio", "ringing_rms", "removed_beat_fraction", "beat_shape_change_percent",
                "edge_deviation", "clipped_runs", "template_noise", "r_amplitude", "beat_count", "dominant_beat_count")
 
