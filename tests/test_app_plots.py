@@ -84,6 +84,8 @@ def test_clock_labels():
     assert format_clock(12.5, 10) == "12.5s"
     assert format_clock(3725, 3600) == "1:02:05"
     assert format_clock(100.0, 10) == "1:40.0"
+    assert format_clock(0.0, 3600) == "0:00:00"  # hour-long views keep one format for every tick
+    assert format_clock(80.0, 120) == "1:20"
 
 
 def test_flag_strip_handles_a_day_of_flagged_beats_and_finds_the_next_one():

@@ -173,7 +173,8 @@ def format_clock(seconds: float, span_s: float | None = None) -> str:
     h, rem = divmod(whole, 3600)
     m, s = divmod(rem, 60)
     tail = f"{s + frac:0{3 + decimals if decimals else 2}.{decimals}f}" if decimals else f"{s:02d}"
-    return f"{sign}{h}:{m:02d}:{tail}" if h else f"{sign}{m}:{tail}"
+    long_view = span_s is not None and span_s >= 3600
+    return f"{sign}{h}:{m:02d}:{tail}" if h or long_view else f"{sign}{m}:{tail}"
 
 
 def format_value(value: float, width: int = Y_LABEL_WIDTH - 1) -> str:
@@ -208,7 +209,7 @@ def nice_ticks(low: float, high: float, max_ticks: int) -> np.ndarray:
     power = 10 ** math.floor(math.log10(raw))
     step = next(m * power for m in (1, 2, 5, 10) if m * power >= raw)
     if span > 90:  # minutes and hours read better on clock-friendly steps
-        for clock_step in (60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600):
+        for clock_step in (10, 15, 20, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200, 10800, 21600):
             if clock_step >= raw:
                 step = clock_step
                 break
