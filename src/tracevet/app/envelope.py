@@ -85,7 +85,10 @@ class MinMaxPyramid:
     """
 
     def __init__(self, samples, factor: int = DEFAULT_FACTOR):
-        data = np.ascontiguousarray(samples, dtype=np.float32)
+        # float32 input is kept as given, even a strided view (one column of a
+        # multi-channel record): no full-length copy per trace; only the first
+        # merge copies it, transiently
+        data = np.asarray(samples, dtype=np.float32)
         if data.ndim != 1:
             raise ValueError(f"samples must be 1-D, got {data.ndim}-D")
         if data.size == 0:

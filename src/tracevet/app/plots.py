@@ -72,8 +72,9 @@ class TracePyramids:
     @classmethod
     def from_arrays(cls, original, cleaned, fs: float) -> "TracePyramids":
         """Build the pyramids of one channel; ``removed = original - cleaned``."""
-        original = np.ascontiguousarray(original, dtype=np.float32)
-        cleaned = np.ascontiguousarray(cleaned, dtype=np.float32)
+        # views, not copies, of float32 channels (a column of a multi-channel record is strided)
+        original = np.asarray(original, dtype=np.float32)
+        cleaned = np.asarray(cleaned, dtype=np.float32)
         if original.shape != cleaned.shape:
             raise ValueError(f"original {original.shape} and cleaned {cleaned.shape} differ in shape")
         return cls(float(fs), MinMaxPyramid(original), MinMaxPyramid(cleaned), MinMaxPyramid(original - cleaned))
