@@ -37,6 +37,7 @@ from tracevet.recording.atomic import fsync_dir, write_text_atomic
 from tracevet.text import inert
 from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.index import ACCEPTED
+from tracevet.workqueue.layout import FILE_MODE
 from tracevet.workqueue.records import _remove_tree, copy_verified
 from tracevet.workqueue.runs import cleaned_path, run_info
 from tracevet.workqueue.settings import utc_now_text
@@ -123,9 +124,9 @@ def export_accepted(queue, dest: str | os.PathLike, exported_by: str | None = No
             "log_head": head,
             "records": rows,
         }
-        write_text_atomic(staging / "manifest.json", json.dumps(manifest, indent=2) + "\n")
-        write_text_atomic(staging / "manifest.csv", _csv(rows))
-        write_text_atomic(staging / "sign-off.txt", _report(manifest))
+        write_text_atomic(staging / "manifest.json", json.dumps(manifest, indent=2) + "\n", mode=FILE_MODE)
+        write_text_atomic(staging / "manifest.csv", _csv(rows), mode=FILE_MODE)
+        write_text_atomic(staging / "sign-off.txt", _report(manifest), mode=FILE_MODE)
         if dest.exists():
             dest.rmdir()
         os.rename(staging, dest)

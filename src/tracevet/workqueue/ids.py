@@ -63,7 +63,7 @@ def make_record_id(source: str, taken: set[str] | frozenset[str] = frozenset()) 
     if not safe or safe.lower() in _RESERVED:
         safe = f"record-{safe}" if safe else "record"
     safe = safe[:MAX_ID_LENGTH].rstrip("-._")
-    lowered = {t.casefold() for t in taken}
+    lowered = taken if isinstance(taken, CaseFoldedIds) else {t.casefold() for t in taken}
     if safe.casefold() not in lowered:
         return safe
     number = 2
@@ -73,6 +73,21 @@ def make_record_id(source: str, taken: set[str] | frozenset[str] = frozenset()) 
         if candidate.casefold() not in lowered:
             return candidate
         number += 1
+
+
+class CaseFoldedIds(set):
+    """A set of ids kept casefolded, for allocating many ids in a row.
+
+    :func:`make_record_id` uses it as is instead of casefolding every id on
+    every call; add new ids with :meth:`add_id`.
+    """
+
+    def __init__(self, ids=()):
+        super().__init__(i.casefold() for i in ids)
+
+    def add_id(self, record_id: str) -> None:
+        """Mark ``record_id`` as taken."""
+        self.add(record_id.casefold())
 
 
 def is_record_id(text: object) -> bool:

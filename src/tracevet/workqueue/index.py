@@ -30,7 +30,7 @@ import os
 
 from tracevet.recording.atomic import write_text_atomic
 from tracevet.workqueue.ids import run_number
-from tracevet.workqueue.layout import QueuePaths
+from tracevet.workqueue.layout import FILE_MODE, QueuePaths
 from tracevet.workqueue.log import LogEntry, read_log
 from tracevet.workqueue.records import list_record_ids, read_meta
 from tracevet.workqueue.runs import list_runs, read_run_meta
@@ -257,7 +257,7 @@ class Index:
             if r in self.records
         ]
         data = ("\n".join(lines) + "\n").encode("utf-8")
-        fd = os.open(str(paths.journal), os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+        fd = os.open(str(paths.journal), os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o666)
         try:
             os.write(fd, data)
         finally:
@@ -269,8 +269,8 @@ class Index:
     def write_snapshot(self, paths: QueuePaths) -> None:
         """Write ``index.json`` whole and empty the journal (queue lock held)."""
         text = json.dumps({"version": INDEX_VERSION, "log_size": self.log_size, "records": self.records})
-        write_text_atomic(paths.index, text)
-        write_text_atomic(paths.journal, json.dumps({"base": True, "log_size": self.log_size}) + "\n")
+        write_text_atomic(paths.index, text, mode=FILE_MODE)
+        write_text_atomic(paths.journal, json.dumps({"base": True, "log_size": self.log_size}) + "\n", mode=FILE_MODE)
         self.snapshot_bytes = len(text)
         self.journal_bytes = 0
         self.dirty.clear()
@@ -316,7 +316,7 @@ def update(paths: QueuePaths, summaries: list[dict], log_size_before: int) -> No
         except FileNotFoundError:
             log_size = 0
         lines = [json.dumps({"id": s["id"], "summary": s, "log_size": log_size}) for s in summaries]
-        fd = os.open(str(paths.journal), os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+        fd = os.open(str(paths.journal), os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o666)
         try:
             os.write(fd, ("\n".join(lines) + "\n").encode("utf-8"))
         finally:

@@ -143,6 +143,17 @@ class QueuePaths:
             return str(path)
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+# Files are created with mode 0666 minus the umask, as ordinary files are, so
+# that a team sharing a queue through a group (umask 002) can all write to it.
+FILE_MODE = 0o666 & ~_umask()
+
+
 def find_queue(path: str | os.PathLike) -> QueuePaths:
     """Return the paths of the queue at ``path`` or raise a one-line error.
 

@@ -17,6 +17,8 @@ import threading
 from pathlib import Path
 from typing import Iterator
 
+from tracevet.errors import InputError
+
 _STATE_GUARD = threading.Lock()
 _STATE: dict[str, tuple[threading.RLock, list]] = {}
 
@@ -36,7 +38,8 @@ def held(path: Path, shared: bool = False) -> Iterator[None]:
     Re-entrant within a process: an inner ``held`` on the same path while
     the outer one is exclusive is a no-op. A shared hold never upgrades.
     """
-    rlock, slot = _state(Path(path))
+    path = Path(path)
+    rlock, slot = _state(path)
     with rlock:
         if slot[0] > 0:
             if slot[2] and not shared:
@@ -48,10 +51,10 @@ def held(path: Path, shared: bool = False) -> Iterator[None]:
                 slot[0] -= 1
             return
         try:
-            fd = os.open(str(path), os.O_RDWR | os.O_CREAT, 0o644)
+            fd = os.open(str(path), os.O_RDWR | os.O_CREAT, 0o666)
         except PermissionError:
             if not shared:
-                raise
+                raise InputError(str(path.parent), "no permission to change this queue (its files must be writable by your user or group)") from None
             fd = os.open(str(path), os.O_RDONLY)  # a reader without write permission still waits for writers
         try:
             fcntl.flock(fd, fcntl.LOCK_SH if shared else fcntl.LOCK_EX)
@@ -71,7 +74,7 @@ def try_hold(path: Path) -> int | None:
     Returns the open descriptor (close it to release) or ``None`` when
     another process holds the lock. Used for the one-clean-at-a-time guard.
     """
-    fd = os.open(str(path), os.O_RDWR | os.O_CREAT, 0o644)
+    fd = os.open(str(path), os.O_RDWR | os.O_CREAT, 0o666)
     try:
         fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
     except BlockingIOError:

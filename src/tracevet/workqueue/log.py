@@ -34,7 +34,7 @@ from typing import Iterable
 from tracevet import __version__
 from tracevet.recording.atomic import fsync_dir, write_text_atomic
 from tracevet.workqueue.checksums import canonical_json, sha256_bytes, sha256_json
-from tracevet.workqueue.layout import QueuePaths
+from tracevet.workqueue.layout import FILE_MODE, QueuePaths
 from tracevet.workqueue.settings import utc_now_text
 
 GENESIS = "0" * 64
@@ -235,7 +235,7 @@ def append(paths: QueuePaths, bodies: Iterable[dict], repairer: str = "tracevet"
     """
     bodies = list(bodies)
     created = not paths.log.exists()
-    fd = os.open(str(paths.log), os.O_RDWR | os.O_APPEND | os.O_CREAT, 0o644)
+    fd = os.open(str(paths.log), os.O_RDWR | os.O_APPEND | os.O_CREAT, 0o666)
     try:
         last, complete_end, size = _tail(fd)
         written: list[LogEntry] = []
@@ -291,7 +291,7 @@ def _write_head(paths: QueuePaths, entry: LogEntry) -> None:
     """
     temporary = paths.head.with_name(f".{paths.head.name}.{os.getpid()}.tmp")
     data = json.dumps({"entries": entry.seq, "hash": entry.hash, "line": entry.line}) + "\n"
-    fd = os.open(str(temporary), os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
+    fd = os.open(str(temporary), os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o666)
     try:
         _write_all(fd, data.encode("ascii"))
         os.fsync(fd)
@@ -316,7 +316,7 @@ def _count_lines(fd: int, end: int) -> int:
 def _save_torn(paths: QueuePaths, data: bytes) -> str:
     name = f"decisions.torn-{utc_now_text().replace(':', '').replace('.', '-')}"
     target = paths.root / name
-    write_text_atomic(target, data.decode("utf-8", errors="backslashreplace"))
+    write_text_atomic(target, data.decode("utf-8", errors="backslashreplace"), mode=FILE_MODE)
     return name
 
 

@@ -10,13 +10,13 @@ from typing import Callable, Iterable, Sequence
 
 from tracevet.errors import InputError, TracevetError
 from tracevet.recording import Recording, read_recording
-from tracevet.recording.atomic import write_text_atomic
+from tracevet.recording.atomic import fsync_dir, write_text_atomic
 from tracevet.workqueue import claims as claims_mod
 from tracevet.workqueue import index as index_mod
 from tracevet.workqueue import log as log_mod
 from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.claims import Claim, ClaimedByOther
-from tracevet.workqueue.ids import check_record_id, make_record_id
+from tracevet.workqueue.ids import CaseFoldedIds, check_record_id, make_record_id
 from tracevet.workqueue.index import (
     ACCEPTED,
     IN_REVIEW,
@@ -29,7 +29,7 @@ from tracevet.workqueue.index import (
     decision_summary,
     summary_from_files,
 )
-from tracevet.workqueue.layout import INIT_TOLERATED, QueuePaths, find_queue
+from tracevet.workqueue.layout import FILE_MODE, INIT_TOLERATED, QueuePaths, find_queue
 from tracevet.workqueue.locking import held
 from tracevet.workqueue.log import DECISIONS, LogEntry
 from tracevet.workqueue.records import (
@@ -210,7 +210,7 @@ class Queue:
         paths = QueuePaths(root.resolve())
         for folder in (paths.records, paths.claims, paths.work):
             folder.mkdir(exist_ok=True)
-        write_text_atomic(paths.settings, settings.to_text())
+        write_text_atomic(paths.settings, settings.to_text(), mode=FILE_MODE)
         return cls(paths, read_settings(paths.settings))
 
     @classmethod
@@ -589,16 +589,16 @@ class Queue:
     def _commit_records(self, staged: list[StagedRecord], added_by: str) -> list[str]:
         ids: list[str] = []
         with self._lock():
-            taken = set(list_record_ids(self.paths))
+            taken = CaseFoldedIds(list_record_ids(self.paths))
             bodies = []
             for record in staged:
                 record_id = make_record_id(record.source_name, taken)
-                taken.add(record_id)
+                taken.add_id(record_id)
                 run_meta = record.meta.pop("run_meta", None)
                 if run_meta is not None:
                     run_meta["record"] = record_id
                     write_run_meta(record.folder / "runs" / "run-001", run_meta)
-                commit_staged(self.paths, record, record_id)
+                commit_staged(self.paths, record, record_id, sync=False)
                 ids.append(record_id)
                 body = {
                     "event": "add",
@@ -613,6 +613,7 @@ class Queue:
                     body["cleaned_source_name"] = record.meta.get("cleaned_source_name")
                     body["cleaned_sha256"] = run_meta["files"].get(run_meta["cleaned"])
                 bodies.append(body)
+            fsync_dir(self.paths.records)  # every rename on disk before the log says the records exist
             log_size = _size(self.paths.log)
             log_mod.append(self.paths, bodies, repairer=added_by)
             index_mod.update(self.paths, [summary_from_files(self.paths, r) for r in ids], log_size)

@@ -22,7 +22,7 @@ from pathlib import Path
 
 from tracevet.errors import InputError
 from tracevet.recording import Recording, read_recording
-from tracevet.recording.atomic import fsync_dir, write_text_atomic
+from tracevet.recording.atomic import fsync_dir
 from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.claims import process_alive
 from tracevet.workqueue.layout import RECORD_META, RUNS_DIR, QueuePaths
@@ -145,13 +145,35 @@ def stage_original(
     return StagedRecord(folder, source.name, meta)
 
 
-def commit_staged(paths: QueuePaths, staged: StagedRecord, record_id: str) -> None:
-    """Give a staged record its id and rename it into ``records/``; caller holds the lock."""
+def write_durable(path: Path, data: bytes, mode: int | None = None) -> None:
+    """Write a new file inside a scratch folder and fsync it.
+
+    No temporary name is needed there: the whole folder becomes visible at
+    once when it is renamed into place, after every file in it is on disk.
+    """
+    fd = os.open(str(path), os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+    try:
+        view = memoryview(data)
+        while view:
+            view = view[os.write(fd, view):]
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+    if mode is not None:
+        os.chmod(path, mode)
+
+
+def commit_staged(paths: QueuePaths, staged: StagedRecord, record_id: str, sync: bool = True) -> None:
+    """Give a staged record its id and rename it into ``records/``; caller holds the lock.
+
+    With ``sync`` false the caller fsyncs ``records/`` once after a batch of renames.
+    """
     staged.meta["id"] = record_id
-    write_text_atomic(staged.folder / RECORD_META, json.dumps(staged.meta, indent=2) + "\n")
+    write_durable(staged.folder / RECORD_META, (json.dumps(staged.meta, indent=2) + "\n").encode("ascii"))
     paths.records.mkdir(exist_ok=True)
     os.rename(staged.folder, paths.record_dir(record_id))
-    fsync_dir(paths.records)
+    if sync:
+        fsync_dir(paths.records)
 
 
 def discard_staged(staged: StagedRecord) -> None:

@@ -29,13 +29,13 @@ import yaml
 from tracevet import __version__
 from tracevet.errors import InputError
 from tracevet.recording import Recording, read_recording
-from tracevet.recording.atomic import fsync_dir, write_bytes_atomic, write_text_atomic
+from tracevet.recording.atomic import fsync_dir
 from tracevet.recording.io import format_recording
 from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.ids import check_record_id, is_run_id, run_id_for, run_number
 from tracevet.workqueue.layout import ASSESSMENT_NAME, RUN_META, RUN_SETTINGS, QueuePaths
 from tracevet.workqueue.log import jsonable
-from tracevet.workqueue.records import READ_ONLY, copy_verified
+from tracevet.workqueue.records import READ_ONLY, copy_verified, write_durable
 from tracevet.workqueue.settings import utc_now_text
 
 # libyaml's safe loader when available (same safety, about ten times faster)
@@ -124,12 +124,12 @@ def build_run(
         origin, settings_dict, digest = "external", None, None
     else:
         cleaned_name = "cleaned.npz"
-        write_bytes_atomic(folder / cleaned_name, format_recording(cleaned, ".npz"))
+        write_durable(folder / cleaned_name, format_recording(cleaned, ".npz"))
         origin = "tracevet"
         settings_dict = jsonable(settings.to_dict())
         digest = settings.digest()
         text = "# cleaning settings of this run (usable as a profile: tracevet denoise --profile)\n" + settings.to_yaml()
-        write_text_atomic(folder / RUN_SETTINGS, text)
+        write_durable(folder / RUN_SETTINGS, text.encode("utf-8"))
     assessment.save(folder)
     flags = flag_dicts(assessment)
     files = {}
@@ -159,11 +159,12 @@ def build_run(
 
 
 def write_run_meta(folder: Path, meta: dict) -> None:
-    """Write ``run.json`` into a run folder (atomic, read-only)."""
+    """Write ``run.json`` into a staged run folder (read-only, fsynced; replaces an earlier one)."""
     target = folder / RUN_META
     if target.exists():
-        os.chmod(target, 0o644)
-    write_text_atomic(target, json.dumps(meta, indent=2) + "\n", mode=READ_ONLY)
+        os.chmod(target, 0o600)
+        target.unlink()
+    write_durable(target, (json.dumps(meta, indent=2) + "\n").encode("ascii"), mode=READ_ONLY)
 
 
 def list_runs(paths: QueuePaths, record_id: str) -> list[str]:
