@@ -19,7 +19,7 @@ from rich.cells import cell_len
 from tracevet.app.app import ReviewApp
 from tracevet.app.record_screen import RecordScreen
 from tracevet.app.worklist_screen import WorklistScreen
-from tracevet.cleaning import DEFAULT_SETTINGS
+from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings
 from tracevet.recording import Recording, write_recording
 from tracevet.workqueue import Queue
 
@@ -49,8 +49,12 @@ def queue_template(tmp_path_factory) -> Path:
         path = root / name
         write_recording(Recording(excerpt[:, None], fs, (channel,), "mV", "ecg"), path)
         files.append(path)
+    # dive-c is cleaned with a 5 Hz baseline high-pass, far above the usual 0.05-0.67 Hz (common
+    # practice for ST-segment fidelity), so it carries fail flags like a damaging run would.
+    harsh = CleaningSettings.from_dict(dict(DEFAULT_SETTINGS.to_dict(), baseline_cutoff_hz=5.0))
     for record_id in queue.add_files(files, added_by="setup"):
-        queue.add_run(record_id, DEFAULT_SETTINGS)
+        queue.add_run(record_id, harsh if record_id == "dive-c" else DEFAULT_SETTINGS)
+    assert queue.record("dive-c").worst_severity == "fail"
     return root / "queue"
 
 
@@ -414,3 +418,22 @@ async def test_a_lapsed_claim_taken_over_turns_the_open_record_read_only(queue_d
         assert isinstance(app.screen, RecordScreen)  # no note prompt: nothing can be decided
     events = [e.event for e in Queue.open(queue_dir).log_entries()]
     assert "takeover" in events and "decision" not in events
+
+
+async def test_accepting_a_run_with_a_fail_flag_needs_a_note(queue_dir):
+    queue = Queue.open(queue_dir)
+    failing = [r.id for r in queue.records() if r.worst_severity == "fail"]
+    app = ReviewApp(queue, "mira", colour=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
+        app.screen.open_record(failing[0])
+        await wait_for(pilot, lambda: record_ready(app))
+        await pilot.press("a")
+        await wait_for(pilot, lambda: type(app.screen).__name__ == "NoteScreen")
+        assert "FAIL flag" in screen_text(app)  # the prompt says why a note is needed
+        await pilot.press("enter")
+        await wait_for(pilot, lambda: "refused" in screen_text(app))
+        assert not decision_entries(queue)
+        await pilot.press("escape")  # cancel: nothing written, back on the record
+        await wait_for(pilot, lambda: isinstance(app.screen, RecordScreen))
+    assert not decision_entries(queue)
