@@ -55,15 +55,23 @@ class PanTompkinsStages:
 
 
 def _as_signal(x) -> np.ndarray:
-    """1-D float64 copy with non-finite samples replaced by the median (never raises on values)."""
-    a = np.asarray(x, dtype=np.float64)
+    """1-D float signal with non-finite samples replaced by the median (never raises on values).
+
+    float32 and float64 input is used as given (never modified) and copied, to
+    float64, only when a sample must be replaced: a day-long float32 record is
+    not doubled into a full-length float64 copy; :func:`_stages` converts each
+    chunk to float64 (exactly) before filtering.
+    """
+    a = np.asarray(x)
+    if a.dtype not in (np.float32, np.float64):
+        a = a.astype(np.float64)
     if a.ndim != 1:
         a = np.squeeze(a)
         if a.ndim != 1:
             raise ValueError("one channel (a 1-D signal) is expected")
-    a = a.copy()
     bad = ~np.isfinite(a)
     if bad.any():
+        a = a.astype(np.float64)
         a[bad] = np.median(a[~bad]) if (~bad).any() else 0.0
     return a
 
@@ -103,6 +111,7 @@ def pan_tompkins_stages(signal, fs: float) -> PanTompkinsStages:
 
 
 def _stages(x: np.ndarray, fs: float) -> PanTompkinsStages:
+    x = np.asarray(x, dtype=np.float64)
     bp = _bandpass(x, fs, *_PASS_BAND_HZ)
     m = max(1, int(round(fs / 200.0)))
     d = np.zeros_like(bp)
