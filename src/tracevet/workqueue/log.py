@@ -283,18 +283,18 @@ def append(paths: QueuePaths, bodies: Iterable[dict], repairer: str = "tracevet"
 
 
 def _write_head(paths: QueuePaths, entry: LogEntry) -> None:
-    """Rewrite ``decisions.head`` (temporary file, fsync, rename).
+    """Rewrite ``decisions.head`` (temporary file, rename).
 
-    The folder is not fsynced: after a power cut the head may lag the log
-    by the last entries, which :func:`chain_problems` accepts; it never
-    runs ahead of the log, because the log is fsynced first.
+    Not fsynced, to keep the time the queue lock is held short: after a
+    power cut the head may lag the log by the last entries, which
+    :func:`chain_problems` accepts; it never runs ahead of the log, because
+    the log is fsynced before the head is written.
     """
     temporary = paths.head.with_name(f".{paths.head.name}.{os.getpid()}.tmp")
     data = json.dumps({"entries": entry.seq, "hash": entry.hash, "line": entry.line}) + "\n"
     fd = os.open(str(temporary), os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o666)
     try:
         _write_all(fd, data.encode("ascii"))
-        os.fsync(fd)
     finally:
         os.close(fd)
     os.replace(temporary, paths.head)
