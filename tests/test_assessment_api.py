@@ -11,7 +11,7 @@ import pytest
 
 from tracevet import synthetic as syn
 from tracevet.assessment import Assessment, assess, default_limits, limits_from_mapping
-from tracevet.assessment.shape_measures import correlation, prd, prdn, rmse
+from tracevet.assessment.comparison import correlation, prd, prdn, rmse
 from tracevet.errors import InputError
 from tracevet.recording import Recording
 

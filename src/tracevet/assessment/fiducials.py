@@ -179,3 +179,8 @@ def qrs_bounds(deviation: np.ndarray, r: int, threshold: float, before: int, aft
         a0, a1 = size[first - 1], size[first]
         onset = first - 1 + float((threshold - a0) / (a1 - a0)) if a1 > a0 else float(first)
     return onset, offset
+
+
+def at_limit(onset: float, offset: float, r: int, before: int, after: int, size: int) -> bool:
+    """True when a QRS bound sits at the end of its search range."""
+    return onset <= max(0, r - before) + 1e-9 or offset >= min(size, r + after + 1) - 1 - 1e-9

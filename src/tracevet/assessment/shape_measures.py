@@ -15,7 +15,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from tracevet.assessment.beats import BeatWindows, median_standard_error, median_template
-from tracevet.assessment.fiducials import SLOPE_SMOOTH_S, Fiducials, find_fiducials, moving_average, qrs_bounds, slope_of
+from tracevet.assessment.comparison import correlation, prd, prdn, rmse
+from tracevet.assessment.fiducials import SLOPE_SMOOTH_S, Fiducials, at_limit, find_fiducials, moving_average, qrs_bounds, slope_of
+from tracevet.assessment.removed_part import detrended, remove_slow_trend, slope_noise, smooth_rows_same
 
 
 def noise_k(n_beats: int) -> float:
@@ -61,48 +63,6 @@ class TemplateMeasures:
     allowance: dict
 
 
-def prd(x: np.ndarray, x_hat: np.ndarray) -> float:
-    """Percentage root-mean-square difference, PRD = 100 sqrt(sum (x - x_hat)^2 / sum x^2).
-
-    Common practice in ECG compression and denoising (e.g. Zigel, Cohen &
-    Katz 2000, IEEE TBME 47(11):1424). Depends on the offset of ``x``: use
-    zero-offset data or :func:`prdn`. Returns ``inf`` if ``x`` is all zero.
-    """
-    x = np.asarray(x, dtype=np.float64)
-    x_hat = np.asarray(x_hat, dtype=np.float64)
-    denom = float(np.sum(x * x))
-    num = float(np.sum((x - x_hat) ** 2))
-    return float("inf") if denom == 0 else 100.0 * np.sqrt(num / denom)
-
-
-def prdn(x: np.ndarray, x_hat: np.ndarray) -> float:
-    """Normalised PRD, PRDN = 100 sqrt(sum (x - x_hat)^2 / sum (x - mean x)^2).
-
-    Common practice; independent of the offset of ``x``. Returns ``inf`` if
-    ``x`` is constant.
-    """
-    x = np.asarray(x, dtype=np.float64)
-    x_hat = np.asarray(x_hat, dtype=np.float64)
-    centred = x - x.mean()
-    denom = float(np.sum(centred * centred))
-    num = float(np.sum((x - x_hat) ** 2))
-    return float("inf") if denom == 0 else 100.0 * np.sqrt(num / denom)
-
-
-def rmse(x: np.ndarray, x_hat: np.ndarray) -> float:
-    """Root-mean-square error sqrt(mean (x - x_hat)^2) (common practice)."""
-    diff = np.asarray(x, dtype=np.float64) - np.asarray(x_hat, dtype=np.float64)
-    return float(np.sqrt(np.mean(diff * diff)))
-
-
-def correlation(x: np.ndarray, y: np.ndarray) -> float | None:
-    """Pearson correlation coefficient; ``None`` if either input is constant."""
-    x = np.asarray(x, dtype=np.float64) - np.mean(x)
-    y = np.asarray(y, dtype=np.float64) - np.mean(y)
-    denom = float(np.sqrt(np.sum(x * x) * np.sum(y * y)))
-    return None if denom == 0 else float(np.sum(x * y) / denom)
-
-
 def _peak_near(values: np.ndarray, index: int, reach: int, polarity: float) -> tuple[int, float]:
     lo, hi = max(0, index - reach), min(values.size, index + reach + 1)
     segment = polarity * values[lo:hi]
@@ -133,67 +93,6 @@ def _lag_ms(reference: np.ndarray, other: np.ndarray, lo: int, hi: int, max_lag:
         if denom < 0:
             shift += 0.5 * (scores[j - 1] - scores[j + 1]) / denom
     return 1000.0 * shift / fs
-
-
-def _detrended(rows: np.ndarray) -> np.ndarray:
-    """Remove the least-squares line from each row (last axis)."""
-    m = rows.shape[-1]
-    t = np.arange(m, dtype=np.float64) - (m - 1) / 2.0
-    centred = rows - rows.mean(axis=-1, keepdims=True)
-    denom = float(np.sum(t * t))
-    if denom == 0:
-        return centred
-    slope = (centred @ t) / denom
-    return centred - slope[..., None] * t
-
-
-def _remove_slow_trend(removed: np.ndarray, iso: slice, fs: float) -> np.ndarray:
-    """Subtract from each beat's removed window the parabola through three quiet anchors.
-
-    Anchors: the mean of the first 30 ms (T-P segment before the P wave), of
-    the isoelectric window and of the last 30 ms (T-P segment after the T
-    wave). Baseline wander taken out by the cleaning differs from beat to beat
-    and is nearly a parabola over one beat, so this keeps it from masking the
-    beat-locked part of the removed component (knot-based baseline
-    estimation, cf. cubic-spline baseline through PR knots; common practice).
-    """
-    n_beats, m = removed.shape
-    edge = max(1, int(round(0.03 * fs)))
-    t = np.arange(m, dtype=np.float64)
-    knots = np.array([(edge - 1) / 2.0, (iso.start + iso.stop - 1) / 2.0, m - 1 - (edge - 1) / 2.0])
-    if not (knots[0] < knots[1] < knots[2]):
-        return removed - removed[:, iso].mean(axis=1, keepdims=True)
-    values = np.stack(
-        [removed[:, :edge].mean(axis=1), removed[:, iso].mean(axis=1), removed[:, m - edge :].mean(axis=1)], axis=1
-    )
-    # Lagrange basis of the parabola through the three knots.
-    basis = np.empty((3, m))
-    for i in range(3):
-        others = [knots[j] for j in range(3) if j != i]
-        basis[i] = (t - others[0]) * (t - others[1]) / ((knots[i] - others[0]) * (knots[i] - others[1]))
-    return removed - values @ basis
-
-
-def _at_limit(onset: float, offset: float, r: int, before: int, after: int, size: int) -> bool:
-    """True when a QRS bound sits at the end of its search range."""
-    return onset <= max(0, r - before) + 1e-9 or offset >= min(size, r + after + 1) - 1 - 1e-9
-
-
-def _slope_noise(removed: np.ndarray, fs: float) -> float:
-    """Typical s.e. of the template slope, from the beat-to-beat spread of the removed part."""
-    slopes = np.gradient(_smooth_rows_same(removed, int(round(SLOPE_SMOOTH_S * fs))), axis=1)
-    return float(np.median(median_standard_error(slopes)))
-
-
-def _smooth_rows_same(rows: np.ndarray, width: int) -> np.ndarray:
-    """Centred moving average along each row, edges repeated (same length)."""
-    width = max(1, int(width) | 1)
-    if width == 1:
-        return rows
-    half = width // 2
-    padded = np.concatenate([np.repeat(rows[:, :1], half, axis=1), rows, np.repeat(rows[:, -1:], half, axis=1)], axis=1)
-    csum = np.concatenate([np.zeros((rows.shape[0], 1)), np.cumsum(padded, axis=1)], axis=1)
-    return (csum[:, width:] - csum[:, :-width]) / width
 
 
 def measure_templates(windows: BeatWindows) -> TemplateMeasures:
@@ -240,14 +139,14 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     k = noise_k(n_beats)
     # First pass: the isoelectric window on the raw original template.
     raw = median_template(windows.original)
-    slope_noise0 = _slope_noise(windows.removed, fs)
+    slope_noise0 = slope_noise(windows.removed, fs)
     iso0 = find_fiducials(raw, windows.pre, fs, windows.rr_s, slope_noise0).iso
     # Each beat is referred to its own isoelectric level (PR segment), so slow
     # offsets between beats (baseline wander) neither blur the templates nor
     # make the medians of original and cleaned disagree (common practice).
     x_w = windows.original - windows.original[:, iso0].mean(axis=1, keepdims=True)
     y_w = windows.cleaned - windows.cleaned[:, iso0].mean(axis=1, keepdims=True)
-    removed = _remove_slow_trend(x_w - y_w, iso0, fs)
+    removed = remove_slow_trend(x_w - y_w, iso0, fs)
     x_t = median_template(x_w)
     r_t = median_template(removed)
     shown_cleaned = median_template(y_w)
@@ -258,7 +157,7 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     # Template noise per sample: s.e. of the median of the removed component.
     sigma_t = median_standard_error(removed)
     noise_level = float(np.median(sigma_t))
-    fid = find_fiducials(x_t, windows.pre, fs, windows.rr_s, _slope_noise(removed, fs))
+    fid = find_fiducials(x_t, windows.pre, fs, windows.rr_s, slope_noise(removed, fs))
     iso = fid.iso
     iso_x, iso_y = float(np.mean(x_t[iso])), float(np.mean(y_t[iso]))
     dev_x, dev_y = x_t - iso_x, y_t - iso_y
@@ -314,7 +213,7 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     r_y = _peak_near(dev_y, fid.r, reach, fid.polarity)[0]
     steep_x = float(slope_x[max(0, fid.r - reach) : fid.r + reach + 1].max())
     steep_y = float(slope_y[max(0, r_y - reach) : r_y + reach + 1].max())
-    sigma_slope = median_standard_error(np.gradient(_smooth_rows_same(removed, int(round(SLOPE_SMOOTH_S * fs))), axis=1))
+    sigma_slope = median_standard_error(np.gradient(smooth_rows_same(removed, int(round(SLOPE_SMOOTH_S * fs))), axis=1))
     floor = 5.0 * float(np.median(sigma_slope))
     curvature = np.gradient(slope_x)
     changes, allows = [], []
@@ -323,7 +222,7 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
         on_y, off_y = qrs_bounds(slope_y, r_y, max(fraction * steep_y, floor), before, after, fs)
         # A bound at the end of its search range was not found (the QRS runs
         # into the T or P wave at this threshold): that threshold says nothing.
-        if _at_limit(on_x, off_x, fid.r, before, after, x_t.size) or _at_limit(on_y, off_y, r_y, before, after, x_t.size):
+        if at_limit(on_x, off_x, fid.r, before, after, x_t.size) or at_limit(on_y, off_y, r_y, before, after, x_t.size):
             continue
         changes.append(((off_y - on_y) - (off_x - on_x)) / fs * 1000.0)
         # Crossing-time error = slope noise / rate of change of the slope there.
@@ -390,10 +289,10 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     # ringing does not.
     controls = [slice(0, flank_len), slice(x_t.size - flank_len, x_t.size)]
     if flanks and n_beats > 1:
-        tmpl_parts = np.concatenate([_detrended(r_mean[sl][None, :])[0] for sl in flanks])
-        beat_parts = np.concatenate([_detrended(removed[:, sl]) for sl in flanks], axis=1)
+        tmpl_parts = np.concatenate([detrended(r_mean[sl][None, :])[0] for sl in flanks])
+        beat_parts = np.concatenate([detrended(removed[:, sl]) for sl in flanks], axis=1)
         floor_sq = float(np.mean(beat_parts.var(axis=0, ddof=1))) / n_beats
-        control_sq = float(np.mean(np.concatenate([_detrended(r_mean[sl][None, :])[0] for sl in controls]) ** 2))
+        control_sq = float(np.mean(np.concatenate([detrended(r_mean[sl][None, :])[0] for sl in controls]) ** 2))
         total_sq = float(np.mean(tmpl_parts**2))
         metrics["ringing_rms"] = float(np.sqrt(max(0.0, total_sq - max(floor_sq, control_sq))))
         # s.d. of the mean of squares of M noise values is about sqrt(2/M) floor^2.
@@ -417,7 +316,7 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     smooth20 = int(round(0.02 * fs))
     xs = moving_average(x_t, smooth20)
     xs -= xs.mean()
-    removed_s = _smooth_rows_same(removed, smooth20)
+    removed_s = smooth_rows_same(removed, smooth20)
     rs = removed_s.mean(axis=0)
     rs -= rs.mean()
     var_s = removed_s.var(axis=0, ddof=1) / n_beats if n_beats > 1 else np.zeros_like(rs)
