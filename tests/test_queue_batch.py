@@ -169,3 +169,20 @@ def test_clean_and_add_pair_commands(run_cli, tmp_path):
     assert code == 2 and err.count("\n") == 1
     code, out, err = run_cli("clean", folder, "--set", "nonsense=1")
     assert code == 2 and "nonsense" in err and err.count("\n") == 1
+
+
+def test_the_queue_settings_set_cleaning_and_flag_limits(queue_of_four, run_cli):
+    queue, ids = queue_of_four
+    text = queue.paths.settings.read_text()
+    queue.paths.settings.write_text(
+        text.replace("cleaning: {}", "cleaning:\n  transform: dwt").replace("flag_limits: {}", "flag_limits:\n  qrs-widening: {warn: 3, fail: 5}")
+    )
+    queue = Queue.open(queue.root)
+    assert queue.settings.limits()["qrs-widening"].fail == 5
+    clean_waiting(queue, workers=1)
+    assert queue.runs(ids[0])[0].settings["transform"] == "dwt"
+    queue.paths.settings.write_text(text.replace("flag_limits: {}", "flag_limits:\n  no-such-flag: {warn: 1}"))
+    queue.decide(ids[0], "rerun", "again", "mira")
+    code, out, err = run_cli("clean", queue.root)
+    assert code == 2 and "queue.yaml" in err and "no-such-flag" in err and err.count("\n") == 1
+    assert [p.file for p in Queue.open(queue.root).verify()] == ["queue.yaml"]

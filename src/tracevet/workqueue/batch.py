@@ -177,6 +177,7 @@ def clean_waiting(
     try:
         sweep_work(queue.paths)
         base = queue.settings.cleaning_settings(overrides).to_dict()
+        queue.settings.limits()  # a bad flag_limits section stops the batch here, once, not per record
         todo = [(record_id, requested or base) for record_id, requested in waiting(queue)]
         total = len(todo)
         if progress:

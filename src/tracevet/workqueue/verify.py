@@ -2,6 +2,7 @@
 
 What is checked, and reported with the log line, record and file concerned:
 
+0. the queue settings (cleaning settings and flag limits usable);
 1. the hash chain (:func:`tracevet.workqueue.log.chain_problems`): every
    entry's hash, its link to the entry before, sequence numbers, the head
    anchor, a torn last line; and that every line is exactly as written;
@@ -102,6 +103,13 @@ def verify_queue(queue, rebuild_index: bool = True) -> list[Problem]:
     for line, message in line_faults:
         if line not in bad_hash_lines:
             problems.append(Problem(_line_where(line), message, line=line, file=LOG_NAME))
+
+    for check in (queue.settings.cleaning_settings, queue.settings.limits):
+        try:
+            check()
+        except Exception as exc:  # reported like every other problem, never fatal
+            message = exc.one_line() if hasattr(exc, "one_line") else str(exc)[:160]
+            problems.append(Problem(paths.relative(paths.settings), f"unusable queue settings: {message}", file=paths.relative(paths.settings)))
 
     record_ids = list_record_ids(paths)
     known_records: dict[str, dict] = {}
