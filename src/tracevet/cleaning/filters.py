@@ -12,6 +12,20 @@ from tracevet.errors import SettingsError
 
 BASELINE_ORDER = 2
 MAINS_BANDWIDTH_HZ = 1.0
+# Narrowest band, as a fraction of the sampling rate, that a second-order IIR
+# design still represents in double precision (below about 5e-10 the poles round
+# onto the unit circle and the forward-backward start-up solve is singular).
+MIN_RELATIVE_BAND = 1e-8
+
+
+def _check_band(name: str, what: str, band_hz: float, fs: float) -> None:
+    """Refuse a filter band too narrow, relative to ``fs``, to be designed stably."""
+    if band_hz / fs < MIN_RELATIVE_BAND:
+        raise SettingsError(
+            name,
+            f"{what} {band_hz:g} Hz is too small a fraction of the sampling rate ({fs:g} Hz) for a stable filter; "
+            "check the sampling rate or turn this filter off",
+        )
 
 
 def baseline_sos(fs: float, cutoff_hz: float, order: int = BASELINE_ORDER) -> np.ndarray:
@@ -29,6 +43,7 @@ def baseline_sos(fs: float, cutoff_hz: float, order: int = BASELINE_ORDER) -> np
     """
     if not 0 < cutoff_hz < fs / 2:
         raise SettingsError("baseline_cutoff_hz", f"{cutoff_hz:g} Hz is not below half the sampling rate ({fs / 2:g} Hz)")
+    _check_band("baseline_cutoff_hz", "cutoff", cutoff_hz, fs)
     # Digital Butterworth: r = tan(pi f / fs) / tan(pi f_c / fs) (bilinear transform).
     ratio = (math.sqrt(2.0) + 1.0) ** (1.0 / (2 * order))
     corner = fs / math.pi * math.atan(math.tan(math.pi * cutoff_hz / fs) / ratio)
@@ -43,6 +58,7 @@ def mains_sos(fs: float, mains_hz: float, harmonics: int, bandwidth_hz: float = 
     zero phase. Multiples at or above ``fs / 2`` are skipped. Returns ``None``
     when no multiple lies below the Nyquist frequency.
     """
+    _check_band("mains", "notch bandwidth", bandwidth_hz, fs)
     sections = []
     for k in range(1, int(harmonics) + 1):
         f = k * float(mains_hz)

@@ -143,13 +143,16 @@ def run(args: argparse.Namespace) -> int:
     from tracevet.assessment import assess  # heavy (SciPy): imported when the command runs
 
     limits = load_limits_file(args.limits) if args.limits else None
+    if args.save:  # checked before the work, so a typo costs nothing
+        folder = Path(args.save)
+        if folder.exists() and not folder.is_dir():
+            raise InputError(args.save, "is a file, not a folder")
+        if not folder.is_dir():
+            raise InputError(args.save, "folder does not exist")
     original = read_recording(args.original, fs=args.fs, kind=args.kind, units=args.units)
     cleaned = read_recording(args.cleaned, fs=args.fs, kind=args.kind, units=args.units)
     result = assess(original, cleaned, limits=limits)
     if args.save:
-        folder = Path(args.save)
-        if not folder.is_dir():
-            raise InputError(args.save, "folder does not exist")
         result.save(folder)
     if args.json:
         sys.stdout.write(json_text(result) + "\n")

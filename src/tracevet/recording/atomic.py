@@ -23,6 +23,33 @@ def fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
+def _current_umask() -> int:
+    """The process umask, read without changing it where the system allows."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as status:
+            for line in status:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError, IndexError):
+        pass
+    old = os.umask(0o022)
+    os.umask(old)
+    return old
+
+
+def default_mode(path: Path) -> int:
+    """Permissions for a file written over ``path``: those it has, else what ``open`` would give.
+
+    ``tempfile.mkstemp`` creates private (0600) files; without this, every
+    atomically written file would be unreadable for the rest of a team sharing
+    a queue or an output folder.
+    """
+    try:
+        return path.stat().st_mode & 0o7777
+    except OSError:
+        return 0o666 & ~_current_umask()
+
+
 def write_atomic(path: str | os.PathLike, writer: Callable[[BinaryIO], None], mode: int | None = None) -> None:
     """Write a file atomically.
 
@@ -30,6 +57,7 @@ def write_atomic(path: str | os.PathLike, writer: Callable[[BinaryIO], None], mo
     target folder. After it returns, the data are flushed and fsynced, the
     temporary file is renamed over ``path`` and the folder is fsynced. If the
     writer raises, the temporary file is removed and ``path`` is untouched.
+    The file gets ``mode`` if given, else :func:`default_mode`.
     """
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
@@ -39,8 +67,7 @@ def write_atomic(path: str | os.PathLike, writer: Callable[[BinaryIO], None], mo
             writer(handle)
             handle.flush()
             os.fsync(handle.fileno())
-        if mode is not None:
-            os.chmod(tmp_name, mode)
+        os.chmod(tmp_name, default_mode(path) if mode is None else mode)
         os.replace(tmp_name, path)
     except BaseException:
         with contextlib.suppress(OSError):

@@ -86,9 +86,7 @@ def read_csv(path: Path, fs: float | None = None) -> Recording:
     try:
         data = np.loadtxt(io.StringIO(body), delimiter=",", dtype=np.float64, ndmin=2, comments="#")
     except ValueError as exc:
-        message = str(exc).splitlines()[0] if str(exc) else "unreadable data"
-        # numpy counts rows of the data block from 1; say which line of the file.
-        message = re.sub(r"at row (\d+)", lambda m: f"at line {int(m.group(1)) + skip}", message)
+        message = _file_line_message(str(exc), skip)
         raise InputError(source, f"malformed data: {message}") from None
     if data.shape[0] == 0:
         raise InputError(source, "header only: no data rows")
@@ -127,6 +125,20 @@ def read_csv(path: Path, fs: float | None = None) -> Recording:
         start_time=start,
         source=source,
     )
+
+
+def _file_line_message(numpy_message: str, skip: int) -> str:
+    """Reword a ``numpy.loadtxt`` error to name the line of the file.
+
+    numpy counts data rows from 0 in conversion errors ("could not convert
+    ... at row 1, column 2") and from 1 in column-count errors ("the number of
+    columns changed from 2 to 1 at row 2"); ``skip`` lines precede the data.
+    Its advice about ``usecols`` (an argument of numpy, not of tracevet) is dropped.
+    """
+    message = numpy_message.splitlines()[0] if numpy_message else "unreadable data"
+    message = message.split("; use `usecols`")[0].rstrip(".")
+    base = skip + 1 if "could not convert" in message else skip
+    return re.sub(r"at row (\d+)", lambda m: f"at line {int(m.group(1)) + base}", message)
 
 
 def _is_number(text: str) -> bool:

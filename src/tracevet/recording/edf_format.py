@@ -79,7 +79,9 @@ def read_edf(path: Path, fs: float | None = None) -> Recording:
     n_signals = int(_number(_ascii(raw[252:256], source, "signal count"), source, "signal count", True))
     if reserved.startswith("EDF+D"):
         raise InputError(source, "EDF+D (discontinuous) files are not supported; export it as continuous EDF+C")
-    if n_signals < 1 or header_bytes != 256 * (n_signals + 1) or len(raw) < header_bytes:
+    if n_signals < 1:
+        raise InputError(source, "EDF file holds no signals (signal count 0)")
+    if header_bytes != 256 * (n_signals + 1) or len(raw) < header_bytes:
         raise InputError(source, "not a valid EDF file (header size does not match its signal count)")
     fields: dict[str, list[str]] = {}
     offset = 256
