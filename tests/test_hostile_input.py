@@ -642,3 +642,22 @@ def test_csv_errors_name_the_line_of_the_file(run_cli, work):
     assert "line 3" in err and "usecols" not in err
     err = refused(run_cli, work.parent, "denoise", work / "nosignals.edf", work / "out.npz")
     assert "no signals" in err
+
+
+def test_export_refuses_a_tampered_log(run_cli, queue, work, tmp_path):
+    """A sign-off whose log entry was edited (note, reviewer) is never exported as if valid."""
+    rc, out, err = run_cli("add", queue, work / "good.npz")
+    assert rc == 0, err
+    rc, out, err = run_cli("clean", queue, "--quiet", "--workers", "1")
+    assert rc in (0, 1), err
+    record = next((queue / "records").iterdir()).name
+    rc, out, err = run_cli("decide", queue, record, "accept", "--note", "fine", "--reviewer", "ana")
+    assert rc == 0, err
+    log = queue / "decisions.jsonl"
+    lines = log.read_text(encoding="utf-8").splitlines()
+    entry = json.loads(lines[-1])
+    entry["reviewer"] = "\x1b[32mchief\x1b[0m"
+    lines[-1] = json.dumps(entry)
+    log.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    err = refused(run_cli, tmp_path, "export", queue, tmp_path / "out", mention="decisions.jsonl")
+    assert "changed" in err and not (tmp_path / "out").exists()

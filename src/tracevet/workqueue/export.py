@@ -62,6 +62,28 @@ def _formula_safe(value: object) -> str:
     return "'" + text if text[:1] in ("=", "+", "-", "@", "\t", "\r") else text
 
 
+def _refuse_broken_chain(queue) -> None:
+    """Raise InputError if the decision log's hash chain is broken.
+
+    A sign-off whose entry was edited, removed or reordered must not leave
+    the queue looking valid. A torn last line (an interrupted append) is no
+    break: every complete entry still verifies. The head anchor is read
+    before the log, so an append racing with the export cannot look like a
+    cut-off log.
+    """
+    from tracevet.workqueue import log as log_mod
+
+    head = log_mod.read_head(queue.paths)
+    contents = log_mod.read_log(queue.paths.log)
+    torn_line = contents.torn.line if contents.torn is not None else None
+    faults = [p for p in log_mod.chain_problems(contents, head) if torn_line is None or p[0] != torn_line]
+    if faults:
+        line, _record, message = faults[0]
+        where = f"{queue.paths.log.name} line {line}" if line is not None else queue.paths.log.name
+        more = f" (and {len(faults) - 1} more problem(s))" if len(faults) > 1 else ""
+        raise InputError(where, f"{message}{more}; nothing exported (run 'tracevet log QUEUE --verify')")
+
+
 def export_accepted(queue, dest: str | os.PathLike, exported_by: str | None = None) -> ExportResult:
     """Export the accepted records of ``queue`` into the new folder ``dest``."""
     dest = Path(dest)
@@ -74,6 +96,7 @@ def export_accepted(queue, dest: str | os.PathLike, exported_by: str | None = No
         raise InputError(str(dest), "is inside the queue folder; export somewhere else")
     except ValueError:
         pass
+    _refuse_broken_chain(queue)
     entries = {e.seq: e for e in queue.log_entries()}
     from tracevet.workqueue.verify import head_summary
 
