@@ -661,3 +661,11 @@ def test_export_refuses_a_tampered_log(run_cli, queue, work, tmp_path):
     log.write_text("\n".join(lines) + "\n", encoding="utf-8")
     err = refused(run_cli, tmp_path, "export", queue, tmp_path / "out", mention="decisions.jsonl")
     assert "changed" in err and not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("name,content", [("garbage.npz", b"garbage"), ("garbage.npy", b"garbage"), ("empty.npz", b""), ("empty.npy", b"")])
+def test_numpy_files_that_are_not_numpy_say_so(run_cli, work, name, content):
+    """Not numpy's guess that the bytes are a pickle, but what is wrong."""
+    (work / name).write_bytes(content)
+    err = refused(run_cli, work.parent, "denoise", work / name, work / "out.npz", "--fs", "250", mention=name)
+    assert "pickle" not in err and ("not a NumPy" in err or "empty" in err)

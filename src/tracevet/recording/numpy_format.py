@@ -36,11 +36,25 @@ def _default_names(count: int) -> tuple[str, ...]:
     return tuple(f"ch{i + 1}" for i in range(count))
 
 
+def _check_magic(path: Path, magic: bytes, what: str) -> None:
+    """Refuse a file that does not start with ``magic`` before numpy guesses it is a pickle."""
+    try:
+        with open(path, "rb") as handle:
+            start = handle.read(len(magic))
+    except OSError as exc:
+        raise InputError(str(path), f"cannot read file ({exc.strerror or exc})") from None
+    if not start:
+        raise InputError(str(path), f"empty file, not a {what}")
+    if start != magic:
+        raise InputError(str(path), f"not a {what}: it does not start like one")
+
+
 def read_npy(path: Path, fs: float | None) -> Recording:
     """Read a ``.npy`` recording; the sampling rate must come from ``fs``."""
     source = str(path)
     if fs is None:
         raise InputError(source, ".npy files carry no sampling rate: pass --fs HZ")
+    _check_magic(path, b"\x93NUMPY", "NumPy .npy file")
     try:
         array = np.load(path, allow_pickle=False)
     except (OSError, ValueError, EOFError) as exc:
@@ -62,6 +76,7 @@ def _scalar_text(archive, key: str, source: str) -> str | None:
 def read_npz(path: Path, fs: float | None) -> Recording:
     """Read a ``.npz`` recording (arrays ``signal`` and ``fs``, optional metadata)."""
     source = str(path)
+    _check_magic(path, b"PK", "NumPy .npz file (zip archive)")
     try:
         archive = np.load(path, allow_pickle=False)
     except (OSError, ValueError, EOFError, zipfile.BadZipFile) as exc:
