@@ -669,3 +669,28 @@ def test_numpy_files_that_are_not_numpy_say_so(run_cli, work, name, content):
     (work / name).write_bytes(content)
     err = refused(run_cli, work.parent, "denoise", work / name, work / "out.npz", "--fs", "250", mention=name)
     assert "pickle" not in err and ("not a NumPy" in err or "empty" in err)
+
+
+def test_numpy_header_declaring_a_huge_array(run_cli, work):
+    """A forged .npy header (shape of 10^13 samples) is refused, not a MemoryError."""
+    import io
+
+    buffer = io.BytesIO()
+    np.save(buffer, np.zeros(10, dtype="<f8"))
+    data = buffer.getvalue()
+    header = data[:128].decode("latin1").replace("(10,)", "(10000000000000,)")
+    header = header[:-1].ljust(127) + "\n"
+    (work / "bomb.npy").write_bytes(header.encode("latin1") + data[128:])
+    refused(run_cli, work.parent, "denoise", work / "bomb.npy", work / "out.npz", "--fs", "250", mention="bomb.npy")
+
+
+def test_edf_header_stays_printable_ascii_and_nan_ranges_refused(run_cli, work):
+    """EDF header fields hold printable US-ASCII, bytes 32..126 (EDF+ specification, Kemp & Olivan 2003; from memory)."""
+    write_recording(Recording(_ecg(), FS, (HOSTILE_TEXT,), "mV", "ecg"), work / "hostile.edf")
+    header = (work / "hostile.edf").read_bytes()[:512]
+    assert all(32 <= b <= 126 for b in header)
+    data = bytearray((work / "good.edf").read_bytes())
+    data[256 + 104 : 256 + 112] = b"nan     "  # physical minimum of the one signal
+    (work / "pnan.edf").write_bytes(bytes(data))
+    err = refused(run_cli, work.parent, "denoise", work / "pnan.edf", work / "out.npz", mention="pnan.edf")
+    assert "physical minimum" in err

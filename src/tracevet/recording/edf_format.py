@@ -22,6 +22,7 @@ samples.
 from __future__ import annotations
 
 import io
+import math
 from datetime import datetime
 from pathlib import Path
 
@@ -56,6 +57,8 @@ def _number(text: str, source: str, what: str, integer: bool = False) -> float:
         value = int(text) if integer else float(text)
     except ValueError:
         raise InputError(source, f"not a valid EDF file ({what} is {text[:20]!r})") from None
+    if not math.isfinite(value):
+        raise InputError(source, f"not a valid EDF file ({what} is {text[:20]!r})")
     return value
 
 
@@ -149,7 +152,10 @@ def read_edf(path: Path, fs: float | None = None) -> Recording:
 
 
 def _field(value: str, width: int) -> bytes:
-    text = value.encode("ascii", "replace")[:width]
+    # EDF header fields hold printable US-ASCII only (bytes 32..126): any other
+    # character, control characters such as ESC included, becomes '?'.
+    printable = "".join(c if " " <= c <= "~" else "?" for c in value)
+    text = printable.encode("ascii")[:width]
     return text.ljust(width, b" ")
 
 

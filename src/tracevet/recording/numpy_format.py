@@ -57,7 +57,7 @@ def read_npy(path: Path, fs: float | None) -> Recording:
     _check_magic(path, b"\x93NUMPY", "NumPy .npy file")
     try:
         array = np.load(path, allow_pickle=False)
-    except (OSError, ValueError, EOFError) as exc:
+    except (OSError, ValueError, EOFError, MemoryError) as exc:  # MemoryError: a header declaring a huge shape
         raise InputError(source, f"not a readable .npy file ({_short(exc)})") from None
     array = _as_signal(array, source)
     count = 1 if array.ndim == 1 else array.shape[1]
@@ -120,7 +120,7 @@ def read_npz(path: Path, fs: float | None) -> Recording:
                 start_time=start,
                 source=source,
             )
-        except (ValueError, zipfile.BadZipFile, EOFError, OSError) as exc:
+        except (ValueError, zipfile.BadZipFile, EOFError, OSError, MemoryError) as exc:
             raise InputError(source, f"damaged .npz file ({_short(exc)})") from None
 
 
