@@ -694,3 +694,12 @@ def test_edf_header_stays_printable_ascii_and_nan_ranges_refused(run_cli, work):
     (work / "pnan.edf").write_bytes(bytes(data))
     err = refused(run_cli, work.parent, "denoise", work / "pnan.edf", work / "out.npz", mention="pnan.edf")
     assert "physical minimum" in err
+
+
+@pytest.mark.parametrize("scale,dtype", [(1e25, np.float32), (1e200, np.float64)])
+def test_absurdly_large_values_refused_not_overflowed(run_cli, work, scale, dtype):
+    """Values whose squares overflow are refused up front, never cleaned into NaN."""
+    np.savez(work / "huge.npz", signal=(_ecg() * scale).astype(dtype), fs=np.float64(FS), units=np.array("mV"), kind=np.array("ecg"))
+    err = refused(run_cli, work.parent, "denoise", work / "huge.npz", work / "out.npz", mention="huge.npz")
+    assert "units" in err
+    refused(run_cli, work.parent, "assess", work / "huge.npz", work / "huge.npz", mention="huge.npz")

@@ -11,6 +11,11 @@ import numpy as np
 from tracevet.errors import InputError
 
 KINDS = ("ecg", "mcg", "other")
+# Largest sample magnitude accepted. The engine works in float32 where that keeps
+# accuracy; sums of squares of values near 1e19 overflow float32 (max 3.4e38),
+# so 1e15 leaves room for a day of samples. Real values are far below it
+# (uV ECG ~1e3, 24-bit ADC counts ~1e7).
+MAX_ABS_SAMPLE = 1e15
 
 # Spellings accepted for units, mapped to the canonical ASCII form.
 _UNIT_ALIASES = {
@@ -98,6 +103,13 @@ class Recording:
         if not np.isfinite(samples).all():
             bad = np.argwhere(~np.isfinite(samples))[0]
             raise InputError(src, f"non-finite sample (NaN or inf) at sample {int(bad[0])}, channel {int(bad[1]) + 1}")
+        peak = max(abs(float(samples.max())), abs(float(samples.min())))
+        if peak > MAX_ABS_SAMPLE:
+            raise InputError(
+                src,
+                f"sample values reach {peak:.3g}, beyond the {MAX_ABS_SAMPLE:.0e} tracevet can process "
+                "without overflow; check the units or rescale the recording",
+            )
         try:
             fs = float(self.fs)
         except (TypeError, ValueError):
