@@ -108,6 +108,8 @@ def work(tmp_path):
     write_recording(Recording(sig[:1000].astype(np.float32), FS, ("ECG",), "mV", "ecg"), d / "short.npz")
     write_recording(Recording(sig.astype(np.float32), 500.0, ("ECG",), "mV", "ecg"), d / "rate500.npz")
     write_recording(Recording(np.column_stack([sig, sig]).astype(np.float32), FS, ("a", "b"), "mV", "ecg"), d / "two.npz")
+    write_recording(Recording((sig * 1000).astype(np.float32), FS, ("ECG",), "uV", "ecg"), d / "microvolt.npz")
+    write_recording(Recording(sig.astype(np.float32), FS, ("MCG",), "pT", "mcg"), d / "mcg.npz")
     (d / "empty.csv").write_text("")
     (d / "header.csv").write_text("time,ecg\n")
     (d / "ragged.csv").write_text("time,ecg\n0,1\n0.004\n0.008,3\n")
@@ -447,9 +449,12 @@ def test_add_refuses_bad_files_and_writes_nothing(run_cli, queue, work):
     refused(run_cli, queue.parent, "add", queue, queue, mention="q")  # the queue into itself
 
 
-@pytest.mark.parametrize("other", ["short.npz", "rate500.npz", "two.npz", "nan.csv", "truncated.edf"])
+@pytest.mark.parametrize("other", ["short.npz", "rate500.npz", "two.npz", "nan.csv", "truncated.edf", "microvolt.npz", "mcg.npz"])
 def test_add_pair_refuses_mismatch(run_cli, queue, work, other):
-    refused(run_cli, queue.parent, "add", queue, "--pair", work / "good.npz", work / other)
+    """The pairs 'tracevet assess' refuses (length, rate, channels, units) are refused by add --pair too."""
+    refused(run_cli, queue.parent, "add", queue, "--pair", work / "good.npz", work / other, mention=other)
+    if other in ("microvolt.npz", "mcg.npz"):
+        refused(run_cli, queue.parent, "assess", work / "good.npz", work / other, mention=other)
 
 
 def test_add_pair_refuses_same_file_twice_or_with_files(run_cli, queue, work):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import getpass
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Callable, Iterable, Sequence
 
@@ -564,7 +564,15 @@ class Queue:
         added_by = check_reviewer(added_by or default_reviewer(), "reviewer")
         original_path_, cleaned_path_ = Path(original), Path(cleaned)
         raw = self._read_input(original_path_, fs, kind, units)
-        done = self._read_input(cleaned_path_, fs if fs is not None else (raw.fs if cleaned_path_.suffix.lower() == ".npy" else None), raw.kind, raw.units)
+        # The cleaned file's own metadata (no queue defaults): a pair in different
+        # units or of different kinds is refused, as 'tracevet assess' refuses it,
+        # instead of being relabelled and flagged for a change it did not make.
+        done = read_recording(cleaned_path_, fs=fs if fs is not None else (raw.fs if cleaned_path_.suffix.lower() == ".npy" else None), kind=kind, units=units)
+        if done.units and raw.units and done.units != raw.units:
+            raise InputError(str(cleaned_path_), f"in {done.units}, the original in {raw.units}")
+        if "other" not in (done.kind, raw.kind) and done.kind != raw.kind:
+            raise InputError(str(cleaned_path_), f"is {done.kind}, the original {raw.kind}")
+        done = replace(done, kind=raw.kind, units=raw.units)
         if done.samples.shape != raw.samples.shape:
             raise InputError(str(cleaned_path_), f"has {done.n_samples} samples x {done.n_channels} channels, the original {raw.n_samples} x {raw.n_channels}")
         if abs(done.fs - raw.fs) > 1e-6 * raw.fs:
