@@ -708,3 +708,21 @@ def test_absurdly_large_values_refused_not_overflowed(run_cli, work, scale, dtyp
     err = refused(run_cli, work.parent, "denoise", work / "huge.npz", work / "out.npz", mention="huge.npz")
     assert "units" in err
     refused(run_cli, work.parent, "assess", work / "huge.npz", work / "huge.npz", mention="huge.npz")
+
+
+def test_hand_edited_claim_file_shown_inert(run_cli, queue, work):
+    """Every field of a claim file edited by hand (host, since, reviewer) reaches the terminal inert."""
+    rc, out, err = run_cli("add", queue, work / "good.npz")
+    assert rc == 0, err
+    record = next((queue / "records").iterdir()).name
+    rc, out, err = run_cli("claim", queue, record, "--reviewer", "ana")
+    assert rc == 0, err
+    claim_file = next((queue / "claims").glob("*.json"))
+    data = json.loads(claim_file.read_text(encoding="utf-8"))
+    data.update(host="h\x1b]0;title\x07\u202e", reviewer="r\x9b31m", since="\x1b[2J", last_activity="not a time")
+    claim_file.write_text(json.dumps(data), encoding="utf-8")
+    for args in (("status", queue), ("status", queue, "--list")):
+        rc, out, err = run_cli(*args)
+        assert rc == 0, err
+        assert_clean_output(out, err)
+        assert "\\x1b[2J" in out

@@ -134,20 +134,26 @@ class Claim:
     def takeover_reason(self, idle_minutes: float) -> str | None:
         """Why another reviewer may take this claim over, or None if it is live."""
         if self.holder_gone():
-            return f"holder's process {self.pid} on {self.host} has ended"
+            return f"holder's process {self.pid} on {inert(self.host, 60)} has ended"
         idle = self.idle_seconds()
         if idle > idle_minutes * 60:
+            if idle == float("inf"):
+                return "its last activity time is unreadable"
             return f"idle for {idle / 60:.0f} min (limit {idle_minutes:g} min)"
         return None
 
     def describe(self) -> str:
         """One inert line: who holds it, where and since when."""
         idle = self.idle_seconds()
-        idle_text = "just now" if idle < 60 else f"{idle / 60:.0f} min ago"
+        if idle == float("inf"):
+            idle_text = "at an unreadable time"
+        else:
+            idle_text = "just now" if idle < 60 else f"{idle / 60:.0f} min ago"
         process = f"process {self.pid}" if self.pid > 0 else "command line"
+        # The claim file may have been edited by hand: every stored field is shown inert.
         return (
             f"{inert(self.reviewer, 60)} on {inert(self.host, 60)} ({process}) "
-            f"since {self.since[:19].replace('T', ' ')} UTC, last active {idle_text}"
+            f"since {inert(self.since[:19].replace('T', ' '))} UTC, last active {idle_text}"
         )
 
 
