@@ -726,3 +726,29 @@ def test_hand_edited_claim_file_shown_inert(run_cli, queue, work):
         assert rc == 0, err
         assert_clean_output(out, err)
         assert "\\x1b[2J" in out
+
+
+def test_duplicate_keys_refused_in_queue_settings_and_limits(run_cli, queue, work):
+    """A key given twice would silently override the first (PyYAML keeps the last): refused, naming the line."""
+    settings = queue / "queue.yaml"
+    original = settings.read_text(encoding="utf-8")
+    settings.write_text(original + "\ndefaults:\n  kind: mcg\n", encoding="utf-8")
+    err = refused(run_cli, queue.parent, "status", queue, mention="queue.yaml")
+    assert "duplicate key 'defaults'" in err
+    settings.write_text(original, encoding="utf-8")
+    (work / "limits.yaml").write_text("flag_limits:\n  r-peak-change: {warn: 0.1, fail: 0.2}\n  r-peak-change: off\n")
+    err = refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--limits", work / "limits.yaml", mention="limits.yaml")
+    assert "duplicate key 'r-peak-change'" in err and "line 3" in err
+    refused(run_cli, work.parent, "denoise", work / "good.npz", work / "out.npz", "--assess", "--limits", work / "limits.yaml", mention="limits.yaml")
+
+
+def test_success_output_echoes_hostile_file_names_inert(run_cli, work):
+    name = "e\x1b[31mvil\u202e[b]x"
+    (work / f"{name}.npz").write_bytes((work / "good.npz").read_bytes())
+    rc, out, err = run_cli("denoise", work / f"{name}.npz", work / f"{name}-out.npz")
+    assert rc == 0, err
+    assert_clean_output(out, err)
+    rc, out, err = run_cli("assess", work / f"{name}.npz", work / f"{name}-out.npz")
+    assert rc in (0, 1), err
+    assert_clean_output(out, err)
+    assert "\\x1b[31m" in out

@@ -20,6 +20,7 @@ from tracevet.assessment.limits import FLAG_IDS, limits_from_mapping
 from tracevet.errors import InputError
 from tracevet.recording import KINDS, SUPPORTED_READ, Recording, read_recording
 from tracevet.recording.atomic import write_text_atomic
+from tracevet.safe_yaml import load_yaml
 from tracevet.text import inert
 
 CAUTION = "tracevet is not a medical device and does not diagnose; its flags support, never replace, review by qualified staff."
@@ -62,13 +63,14 @@ def load_limits_file(path: str):
     if not file.is_file():
         raise InputError(path, "no such file")
     try:
-        data = yaml.safe_load(file.read_text(encoding="utf-8"))
+        data = load_yaml(file.read_text(encoding="utf-8"))  # safe; a flag given twice is refused
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(path, f"cannot read ({type(exc).__name__})") from None
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark is not None else ""
-        raise InputError(path, f"not valid YAML{where}") from None
+        problem = " ".join(str(getattr(exc, "problem", None) or "").split())[:100]
+        raise InputError(path, f"not valid YAML{where}" + (f": {problem}" if problem else "")) from None
     if data is None:
         return {}
     if isinstance(data, dict) and "flag_limits" in data:

@@ -29,6 +29,7 @@ import yaml
 
 from tracevet.errors import InputError
 from tracevet.recording.model import KINDS, normalise_units
+from tracevet.safe_yaml import load_yaml
 from tracevet.workqueue.layout import FORMAT_VERSION, MARKER_KEY
 
 DEFAULT_IDLE_MINUTES = 30.0
@@ -151,7 +152,7 @@ def read_settings(path: Path) -> QueueSettings:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(source, f"cannot read queue settings ({type(exc).__name__})") from None
     try:
-        data = yaml.load(text, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader))  # noqa: S506 - a safe loader
+        data = load_yaml(text)  # safe loading; a key given twice is refused, not silently overridden
     except yaml.YAMLError as exc:
         where = getattr(exc, "problem_mark", None)
         line = f" at line {where.line + 1}" if where is not None else ""
