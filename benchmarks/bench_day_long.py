@@ -75,7 +75,7 @@ def make_recording(path: Path, hours: float, fs: float, channels: int) -> int:
 
 
 def run_child(argv: list[str], timeout: float = 1800.0) -> dict:
-    """Run ``argv`` as a child; wall time, exit code, peak RSS (MB) of it and its waited-for children."""
+    """Run ``argv`` as a child; wall time, exit code and its output."""
     t0 = time.perf_counter()
     proc = subprocess.Popen(argv, env=ENV, stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=ROOT)
     out, err = b"", b""
@@ -85,7 +85,7 @@ def run_child(argv: list[str], timeout: float = 1800.0) -> dict:
         proc.kill()
         out, err = proc.communicate()
     # communicate() has reaped the child; RUSAGE_CHILDREN would mix all children,
-    # so the peak comes from a fresh wait4 on a dedicated helper (see _measured)
+    # so the peak comes from os.wait4 in a dedicated helper (see measured)
     return {"seconds": time.perf_counter() - t0, "rc": proc.returncode, "out": out.decode(errors="replace"),
             "err": err.decode(errors="replace")}
 
@@ -218,8 +218,8 @@ def bench_one(label: str, work: Path, hours: float, fs: float, channels: int) ->
         status = "ok" if r["rc"] in ok_codes else f"exit {r['rc']}"
         if r["rc"] not in ok_codes:
             print(f"  !! {name}: {r['err'].strip()[-600:]}", flush=True)
-        rows.append((label, name, r["wall"], r["maxrss_mb"], r["maxrss_mb"] * 1e6 / 2**20 * 2**20 / size, status))
-        print(f"  {name:<26} {r['wall']:8.1f} s  {r['maxrss_mb']:8.0f} MB  {status}", flush=True)
+        rows.append((label, name, r["wall"], r["maxrss_mb"], r["maxrss_mb"] * 2**20 / size, status))
+        print(f"  {name:<26} {r['wall']:8.1f} s  {r['maxrss_mb']:8.0f} MiB  {status}", flush=True)
         return r
 
     step("denoise", cli("denoise", str(rec), str(out)))
@@ -271,7 +271,7 @@ def main() -> None:
         app_child(args.app_child)
         return
     base = measured([PY, "-c", "import numpy, scipy, pywt, tracevet.cli.main, tracevet.assessment, tracevet.workqueue"])
-    print(f"bare interpreter with tracevet, numpy, scipy imported: {base['maxrss_mb']:.0f} MB peak RSS; "
+    print(f"bare interpreter with tracevet, numpy, scipy imported: {base['maxrss_mb']:.0f} MiB peak RSS; "
           f"{os.cpu_count()} cores", flush=True)
     work = Path(tempfile.mkdtemp(prefix="tv-day-", dir=args.dir))
     scale = 1 / 12 if args.quick else 1.0
@@ -288,9 +288,9 @@ def main() -> None:
     print()
     for label, hours, fs, channels, size, rows in table:
         print(f"{label}: {hours:g} h, {channels} ch, {fs:g} Hz; float32 size {size / 1e6:.1f} MB "
-              f"(memory ratio = peak RSS / float32 size; base interpreter {base['maxrss_mb']:.0f} MB)")
-        print(f"| step | wall (s) | peak RSS (MB) | x float32 | note |")
-        print(f"|---|---:|---:|---:|---|")
+              f"(memory ratio = peak RSS / float32 size; base interpreter {base['maxrss_mb']:.0f} MiB)")
+        print("| step | wall (s) | peak RSS (MiB) | x float32 | note |")
+        print("|---|---:|---:|---:|---|")
         for _, name, wall, rss, _ratio, note in rows:
             ratio = rss * 2**20 / size if rss == rss else float("nan")
             rss_text = f"{rss:.0f}" if rss == rss else ""
