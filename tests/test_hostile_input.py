@@ -71,30 +71,10 @@ def refused(run_cli, root: Path, *args, mention: str | None = None, code: int = 
 
 
 def _ecg(seconds: float = 8.0, fs: float = FS, scale: float = 1.0, seed: int = 0) -> np.ndarray:
-    """A short synthetic ECG (McSharry model) for test input."""
+    """A short synthetic ECG in mV (McSharry et al. 2003 model), test input only."""
     from tracevet.synthetic import synthetic_ecg
 
-    return _call_synthetic(synthetic_ecg, seconds, fs, seed) * scale
-
-
-def _call_synthetic(fn, seconds, fs, seed):
-    import inspect
-
-    params = inspect.signature(fn).parameters
-    kwargs = {}
-    for name in ("duration_s", "seconds", "duration"):
-        if name in params:
-            kwargs[name] = seconds
-    for name in ("fs", "sampling_rate"):
-        if name in params:
-            kwargs[name] = fs
-    if "seed" in params:
-        kwargs["seed"] = seed
-    result = fn(**kwargs)
-    signal = getattr(result, "signal", result)
-    if isinstance(result, tuple):
-        signal = result[0]
-    return np.asarray(signal, dtype=np.float64).reshape(-1)
+    return synthetic_ecg(duration_s=seconds, fs=fs, seed=seed).signal * scale
 
 
 @pytest.fixture
