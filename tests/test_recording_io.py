@@ -151,3 +151,31 @@ def test_write_failure_leaves_no_file(tmp_path):
     with pytest.raises(InputError):
         write_recording(rec, tmp_path / "out.csv")
     assert list(tmp_path.iterdir()) == []
+
+
+def test_streamed_npz_is_identical_to_the_in_memory_bytes(tmp_path):
+    from tracevet.recording.io import format_recording
+
+    rec = _rec(n=5000, ch=3)
+    write_recording(rec, tmp_path / "a.npz")
+    back = read_recording(tmp_path / "a.npz")
+    np.testing.assert_array_equal(back.samples, rec.samples)
+    assert back.channels == rec.channels and back.kind == rec.kind
+    (tmp_path / "b.npz").write_bytes(format_recording(rec, ".npz"))
+    np.testing.assert_array_equal(read_recording(tmp_path / "b.npz").samples, back.samples)
+
+
+def test_unwritable_folder_gives_one_line_and_leaves_nothing(tmp_path):
+    import os
+
+    folder = tmp_path / "locked"
+    folder.mkdir()
+    os.chmod(folder, 0o500)
+    try:
+        if os.access(folder, os.W_OK):
+            pytest.skip("running as a user that can write anywhere (root)")
+        with pytest.raises(InputError, match="cannot write"):
+            write_recording(_rec(), folder / "out.npz")
+        assert list(folder.iterdir()) == []
+    finally:
+        os.chmod(folder, 0o700)

@@ -7,14 +7,16 @@ from dataclasses import replace
 from pathlib import Path
 
 from tracevet.errors import InputError
-from tracevet.recording.atomic import write_bytes_atomic
+from tracevet.recording.atomic import write_atomic
 from tracevet.recording.csv_format import format_csv, read_csv
 from tracevet.recording.edf_format import format_edf, read_edf
 from tracevet.recording.model import KINDS, Recording, normalise_units
-from tracevet.recording.numpy_format import format_npy, format_npz, read_npy, read_npz
+from tracevet.recording.numpy_format import format_npy, format_npz, read_npy, read_npz, write_npy, write_npz
 
 _READERS = {".csv": read_csv, ".npy": read_npy, ".npz": read_npz, ".edf": read_edf}
 _WRITERS = {".csv": format_csv, ".npy": format_npy, ".npz": format_npz, ".edf": format_edf}
+# Formats written straight into the (temporary) file, without the whole file in memory first.
+_STREAM_WRITERS = {".npy": write_npy, ".npz": write_npz}
 SUPPORTED_READ = tuple(sorted(_READERS))
 SUPPORTED_WRITE = tuple(sorted(_WRITERS))
 
@@ -79,8 +81,12 @@ def format_recording(recording: Recording, suffix: str) -> bytes:
 def write_recording(recording: Recording, path: str | os.PathLike) -> None:
     """Write ``recording`` atomically in the format of ``path``'s extension.
 
-    The bytes are produced in memory first, so an error (for example a
-    channel name CSV cannot hold) leaves no file behind.
+    ``.npy`` and ``.npz`` are written straight into a temporary file beside
+    ``path`` (no second copy of a long record in memory); ``.csv`` and
+    ``.edf`` are produced in memory first, so an error (for example a channel
+    name CSV cannot hold) is raised before any file exists. In every case the
+    temporary file is renamed over ``path`` only when complete, and removed if
+    anything fails, so ``path`` is either the whole new file or untouched.
     """
     path = Path(path)
     suffix = _suffix(path, _WRITERS, "write")
@@ -88,4 +94,11 @@ def write_recording(recording: Recording, path: str | os.PathLike) -> None:
         raise InputError(str(path), "is a folder, not a file name")
     if not path.parent.exists():
         raise InputError(str(path), "its folder does not exist")
-    write_bytes_atomic(path, format_recording(recording, suffix))
+    try:
+        if suffix in _STREAM_WRITERS:
+            write_atomic(path, lambda handle: _STREAM_WRITERS[suffix](recording, handle))
+            return
+        data = format_recording(recording, suffix)
+        write_atomic(path, lambda handle: handle.write(data))
+    except OSError as exc:
+        raise InputError(str(path), f"cannot write ({exc.strerror or exc})") from None

@@ -124,17 +124,14 @@ def read_npz(path: Path, fs: float | None) -> Recording:
             raise InputError(source, f"damaged .npz file ({_short(exc)})") from None
 
 
-def format_npy(recording: Recording) -> bytes:
-    """Serialise the samples as ``.npy`` (1-D for a single channel)."""
-    buffer = io.BytesIO()
+def write_npy(recording: Recording, handle) -> None:
+    """Write the samples as ``.npy`` to an open binary file (1-D for a single channel)."""
     samples = recording.samples[:, 0] if recording.n_channels == 1 else recording.samples
-    np.save(buffer, np.ascontiguousarray(samples), allow_pickle=False)
-    return buffer.getvalue()
+    np.save(handle, np.ascontiguousarray(samples), allow_pickle=False)
 
 
-def format_npz(recording: Recording) -> bytes:
-    """Serialise samples and metadata as ``.npz``."""
-    buffer = io.BytesIO()
+def write_npz(recording: Recording, handle) -> None:
+    """Write samples and metadata as ``.npz`` to an open, seekable binary file."""
     arrays = {
         "signal": recording.samples[:, 0] if recording.n_channels == 1 else recording.samples,
         "fs": np.float64(recording.fs),
@@ -145,7 +142,20 @@ def format_npz(recording: Recording) -> bytes:
         arrays["units"] = np.array(recording.units)
     if recording.start_time:
         arrays["start_time"] = np.array(recording.start_time.isoformat())
-    np.savez(buffer, **arrays)
+    np.savez(handle, **arrays)
+
+
+def format_npy(recording: Recording) -> bytes:
+    """Serialise the samples as ``.npy`` bytes (see :func:`write_npy`)."""
+    buffer = io.BytesIO()
+    write_npy(recording, buffer)
+    return buffer.getvalue()
+
+
+def format_npz(recording: Recording) -> bytes:
+    """Serialise samples and metadata as ``.npz`` bytes (see :func:`write_npz`)."""
+    buffer = io.BytesIO()
+    write_npz(recording, buffer)
     return buffer.getvalue()
 
 
