@@ -179,3 +179,58 @@ def test_noise_allowance_widens_but_never_tightens():
     assert grade(0.12, 0.05, 0.10, 0.15) == (None, 0.15)
     assert grade(0.12, 0.05, 0.10, 0.11) == ("fail", 0.11)
     assert grade(0.04, 0.05, 0.10, 0.01) == (None, 0.05)
+
+
+def _ecg_at(fs, seed=3, hr=70.0):
+    rec = syn.synthetic_ecg(20.0, fs, heart_rate_bpm=hr, seed=seed)
+    normal = rec.beat_labels == "N"
+    return fc.Source("t", rec.signal, rec.signal, fs, rec.r_peaks, rec.fiducials["P"][normal],
+                     rec.fiducials["T"][normal], "ecg", "mV", 1.0)
+
+
+def test_clipping_found_at_125_hz_and_r_read_under_the_plateau():
+    # Clipped R tops last one or two samples at 125 Hz; any clipping fails
+    # (common practice), and the R change is the clipped 20 % (the original is
+    # read at its peak under the flat top, not at the plateau's first sample).
+    src = _ecg_at(125.0)
+    result = _assess(src, fc.clip_top(src.clean, src, 0.8))
+    assert _severity(result, "clipping") == "fail"
+    assert result.metrics["r_amplitude_ratio"] == pytest.approx(0.8, abs=0.03)
+    assert _severity(result, "r-peak-change") == "fail"
+
+
+def test_haar_staircase_is_not_clipping():
+    # A Haar approximation (PyWavelets, wavedec/waverec with the details
+    # zeroed) holds the mean of the original over each dyadic block: flat at
+    # its maximum, but the original lies on both sides of that level.
+    import pywt
+
+    src = _ecg_at(500.0)
+    coeffs = pywt.wavedec(src.clean, "haar", level=2)
+    stair = pywt.waverec([coeffs[0]] + [np.zeros_like(c) for c in coeffs[1:]], "haar")[: src.clean.size]
+    assert np.sum(stair >= stair.max() - 1e-9) >= 3
+    result = _assess(src, stair)
+    assert result.metrics["clipped_runs"] == 0
+    assert _severity(result, "clipping") is None
+
+
+@pytest.mark.parametrize("excess, counted", [(0.015, False), (0.025, True)])
+def test_clipped_run_needs_the_original_beyond_the_flat_level(excess, counted):
+    # A flat run counts as clipping when the original averages more than 2 %
+    # of the range beyond it (common practice); a noise-free bump is clipped
+    # at the level that gives the stated mean excess.
+    from tracevet.assessment.signal_checks import clipped_runs
+
+    fs = 500.0
+    t = np.arange(2000) / fs
+    original = np.exp(-0.5 * ((t - 2.0) / 0.02) ** 2) - 0.2 * np.exp(-0.5 * ((t - 2.5) / 0.02) ** 2)
+
+    def mean_excess(level):
+        top = original[original > level]
+        return (top.mean() - level) / (level + 0.2) if top.size else 0.0  # range of the clipped trace
+
+    levels = np.linspace(0.5, 1.0, 20001)
+    level = levels[np.argmin([abs(mean_excess(v) - excess) for v in levels])]
+    cleaned = np.minimum(original, level)
+    runs = clipped_runs(original, cleaned, fs)
+    assert (runs.shape[0] == 1) is counted

@@ -11,7 +11,7 @@ from tracevet.assessment.flags import Flag, evaluate, no_beats_flag
 from tracevet.assessment.limits import Limits, LimitSpec, default_limits, limits_from_mapping
 from tracevet.assessment.result import Assessment, ChannelBeats
 from tracevet.assessment.shape_measures import measure_templates
-from tracevet.assessment.signal_checks import edge_deviation, flat_runs_at_extremes, signal_comparison
+from tracevet.assessment.signal_checks import clipped_runs, edge_deviation, signal_comparison
 from tracevet.errors import InputError
 from tracevet.recording.model import Recording
 
@@ -144,10 +144,9 @@ def assess_channel(
     metrics["beat_count"] = float(peaks.size)
     windows = build_windows(original, cleaned, peaks, fs) if peaks.size >= 2 else None
 
-    runs_y = flat_runs_at_extremes(cleaned, fs)
-    runs_x = flat_runs_at_extremes(original, fs)
-    metrics["clipped_runs"] = float(max(0, runs_y.shape[0] - runs_x.shape[0]))
-    if runs_y.shape[0] > runs_x.shape[0]:
+    runs_y = clipped_runs(original, cleaned, fs)
+    metrics["clipped_runs"] = float(runs_y.shape[0])
+    if runs_y.shape[0]:
         extra_regions["clipping"] = [(s / fs, e / fs) for s, e in runs_y.tolist()]
     edge, edge_windows = edge_deviation(original, cleaned, fs)
     metrics["edge_deviation"] = edge

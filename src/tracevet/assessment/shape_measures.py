@@ -70,6 +70,15 @@ def _peak_near(values: np.ndarray, index: int, reach: int, polarity: float) -> t
     return lo + best, float(segment[best])
 
 
+def _plateau(values: np.ndarray, peak: int, tol: float, reach: int) -> slice:
+    """The contiguous samples around ``peak`` (at most ``reach`` each side) within ``tol`` of its value."""
+    lo, hi = max(0, peak - reach), min(values.size, peak + reach + 1)
+    low = np.flatnonzero(values[lo:hi] < values[peak] - tol) + lo
+    left = low[low < peak]
+    right = low[low > peak]
+    return slice(int(left[-1]) + 1 if left.size else lo, int(right[0]) if right.size else hi)
+
+
 def _lag_ms(reference: np.ndarray, other: np.ndarray, lo: int, hi: int, max_lag: int, fs: float) -> float:
     """Lag (ms) of ``other`` behind ``reference`` on [lo, hi), parabolic peak interpolation.
 
@@ -112,8 +121,9 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
       (common practice; see :func:`prd`). ``rmse``, ``correlation``: same pair.
     * ``r_amplitude_ratio``: cleaned R amplitude (largest same-polarity
       deviation within +-25 ms of the original R) over the original
-      template's value at the same sample, both above their own isoelectric
-      level (common practice).
+      template's value at the same sample (its highest value under the
+      plateau when the cleaned peak is flat to 1 %, as a clipped one is),
+      both above their own isoelectric level (common practice).
     * ``r_timing_shift_ms``: cross-correlation lag of the cleaned QRS against
       the original QRS, positive when the cleaned beat is late.
     * ``qrs_width_change_ms``: QRS width (outermost 12 %-of-R crossings, see
@@ -181,7 +191,11 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     # its peak position does not depend on the original's noise; reading the
     # original at its own noisiest maximum would bias the ratio low.
     r_y, amp_y = _peak_near(dev_y, fid.r, reach, fid.polarity)
-    amp_x_at = fid.polarity * float(dev_x[r_y])
+    # On a flat top (a clipped peak) the cleaned maximum is only one sample
+    # of the plateau; the original is read at its highest point under the
+    # whole plateau (samples within 1 % of the cleaned peak, contiguous).
+    top = _plateau(fid.polarity * dev_y, r_y, 0.01 * abs(amp_y), reach)
+    amp_x_at = float(np.max(fid.polarity * dev_x[top]))
     if amp_x > 0:
         ratio = amp_y / amp_x_at if amp_x_at > 0.5 * amp_x else amp_y / amp_x
         metrics["r_amplitude_ratio"] = ratio

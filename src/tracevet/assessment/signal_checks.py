@@ -15,7 +15,7 @@ MAX_INTERIOR_WINDOWS = 2000
 def flat_runs_at_extremes(signal: np.ndarray, fs: float, min_ms: float = 4.0) -> np.ndarray:
     """Runs of samples stuck at the trace's maximum or minimum.
 
-    A run counts when at least ``max(3, min_ms * fs / 1000)`` consecutive
+    A run counts when at least ``min_run_samples(fs, min_ms)`` consecutive
     samples lie within ``1e-7`` of the range from the global maximum (or
     minimum): the signature of clipping (common practice).
 
@@ -27,7 +27,7 @@ def flat_runs_at_extremes(signal: np.ndarray, fs: float, min_ms: float = 4.0) ->
     signal = np.asarray(signal)
     hi, lo = float(signal.max()), float(signal.min())
     span = hi - lo
-    min_run = max(3, int(np.ceil(min_ms / 1000.0 * fs)))
+    min_run = min_run_samples(fs, min_ms)
     if span == 0:
         return np.array([[0, signal.size]], dtype=np.int64) if signal.size >= min_run else np.empty((0, 2), np.int64)
     tol = 1e-7 * span
@@ -40,6 +40,55 @@ def flat_runs_at_extremes(signal: np.ndarray, fs: float, min_ms: float = 4.0) ->
         keep = (ends - starts) >= min_run
         runs.append(np.stack([starts[keep], ends[keep]], axis=1))
     return np.concatenate(runs).astype(np.int64)
+
+
+def min_run_samples(fs: float, min_ms: float = 4.0) -> int:
+    """Shortest flat run that can be clipping: ``max(3, min_ms * fs / 1000)`` samples, 2 below 250 Hz.
+
+    Below 250 Hz three samples last 12-24 ms, longer than the part of an R
+    peak a clipper cuts off (common practice).
+    """
+    return max(2 if fs < 250.0 else 3, int(np.ceil(min_ms / 1000.0 * fs)))
+
+
+def clipped_runs(original: np.ndarray, cleaned: np.ndarray, fs: float) -> np.ndarray:
+    """Flat runs at the cleaned trace's extremes under which the original goes beyond the flat level.
+
+    A flat run of the cleaned trace at its maximum (minimum) is clipping only
+    if the original, averaged over the run, lies above (below) the flat
+    level by more than ``max(3 s.e., 2 % of the cleaned trace's range)``,
+    with s.e. = sigma / sqrt(run length) and sigma the robust (MAD of first
+    differences / sqrt 2) noise of the removed component within 0.25 s of the
+    run. A clipper cuts the original off at the level, so the original lies
+    beyond it throughout the run; a staircase reconstruction (Haar) holds the
+    local mean of the original, which lies on both sides of its level
+    (common practice). Runs the original itself has (a saturated recording)
+    do not count either: there the original sits at the level.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(n_runs, 2)`` int64 array of [start, end) sample indices.
+    """
+    runs = flat_runs_at_extremes(cleaned, fs)
+    if runs.shape[0] == 0:
+        return runs
+    hi, lo = float(np.max(cleaned)), float(np.min(cleaned))
+    span = hi - lo
+    reach = max(4, int(round(0.25 * fs)))
+    n = cleaned.size
+    keep = np.zeros(runs.shape[0], dtype=bool)
+    # One loop step per run: runs at the global extremes are few.
+    for i, (start, end) in enumerate(runs.tolist()):
+        a, b = max(0, start - reach), min(n, end + reach)
+        removed = original[a:b].astype(np.float64) - cleaned[a:b].astype(np.float64)
+        steps = np.diff(removed)
+        sigma = 1.4826 * float(np.median(np.abs(steps - np.median(steps)))) / np.sqrt(2.0) if steps.size else 0.0
+        level = float(cleaned[start])
+        polarity = 1.0 if level >= hi - 1e-7 * span else -1.0
+        excess = polarity * (float(np.mean(original[start:end], dtype=np.float64)) - level)
+        keep[i] = excess > max(3.0 * sigma / np.sqrt(end - start), 0.02 * span)
+    return runs[keep]
 
 
 def _bend(rows: np.ndarray, smooth: int) -> np.ndarray:
