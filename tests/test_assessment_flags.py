@@ -234,3 +234,24 @@ def test_clipped_run_needs_the_original_beyond_the_flat_level(excess, counted):
     cleaned = np.minimum(original, level)
     runs = clipped_runs(original, cleaned, fs)
     assert (runs.shape[0] == 1) is counted
+
+
+def test_edge_quiet_when_the_original_moves_at_its_edge(ecg):
+    # Electrode motion in the original's first 0.5 s (and once inside the
+    # record) taken out by the cleaning is not an edge artefact; nor is a
+    # straight ramp left at the end (a baseline high-pass settling): neither
+    # changes a beat's shape. A decaying step 0.2 mV beyond the interior
+    # still fails, and one of 0.25 mV warns (0.1 / 0.2 mV limits: common
+    # practice; a step decaying with tau 0.2 s keeps 55 % of its size off the
+    # line through the far half of the 0.5 s window).
+    t = np.arange(ecg.clean.size) / ecg.fs
+    motion = sum(0.8 * np.exp(-0.5 * ((t - c) / 0.06) ** 2) for c in (0.25, 9.25))
+    moved = fc.Source("m", ecg.clean + motion, ecg.clean + motion, ecg.fs, ecg.r_peaks, ecg.p_centres,
+                      ecg.t_centres, "ecg", "mV", 1.0)
+    result = _assess(moved, ecg.clean)
+    assert result.metrics["edge_deviation"] < 0.05
+    assert _severity(result, "edge-artefact") is None
+    ramp = np.where(t > t[-1] - 0.5, 0.4 * (t - (t[-1] - 0.5)) / 0.5, 0.0)
+    assert _severity(_assess(ecg, ecg.clean + ramp), "edge-artefact") is None
+    assert _severity(_assess(moved, fc.edge_transient(ecg.clean, ecg, 0.6)), "edge-artefact") == "fail"
+    assert _severity(_assess(moved, fc.edge_transient(ecg.clean, ecg, 0.25)), "edge-artefact") == "warn"
