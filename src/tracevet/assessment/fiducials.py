@@ -97,6 +97,8 @@ def find_fiducials(original: np.ndarray, centre: int, fs: float, rr_s: float, sl
       within min(100 ms, 0.2 RR) before and min(120 ms, 0.22 RR) after R
       (slope-threshold delineation, common practice). A slope criterion does
       not depend on the baseline, so an ST deviation does not move the J point.
+      The quiet run that ends the QRS lasts min(30 ms, 0.06 RR); without
+      one, the bound is the first slope minimum beyond the steepest QRS slope.
     * Isoelectric level: the 20 ms of the PR segment ending 5 ms before QRS
       onset (the PQ junction; AHA/ACCF/HRS 2009 Part VI, from memory; common
       practice).
@@ -115,7 +117,7 @@ def find_fiducials(original: np.ndarray, centre: int, fs: float, rr_s: float, sl
     threshold = max(0.08 * steepest, 5.0 * slope_noise)
     before = max(1, int(round(min(0.10, 0.20 * rr_s) * fs)))
     after = max(1, int(round(min(0.12, 0.22 * rr_s) * fs)))
-    onset, offset = qrs_bounds(slope, r, threshold, before, after, fs)
+    onset, offset = qrs_bounds(slope, r, threshold, before, after, fs, rr_s=rr_s, fallback="minimum")
     width = max(1, int(round(0.02 * fs)))
     iso_hi = max(1, int(np.floor(onset)) - int(round(0.005 * fs)))
     iso = slice(max(0, iso_hi - width), iso_hi)
@@ -145,18 +147,39 @@ def _first_quiet(quiet: np.ndarray, run: int) -> int | None:
     return int(hits[0]) if hits.size else None
 
 
-def qrs_bounds(deviation: np.ndarray, r: int, threshold: float, before: int, after: int, fs: float | None = None) -> tuple[float, float]:
+def _first_valley(values: np.ndarray) -> int:
+    """Index of the first local minimum of ``values`` (the last index when it never rises again)."""
+    rises = np.flatnonzero(np.diff(values) > 0)
+    return int(rises[0]) if rises.size else values.size - 1
+
+
+def qrs_bounds(
+    deviation: np.ndarray,
+    r: int,
+    threshold: float,
+    before: int,
+    after: int,
+    fs: float | None = None,
+    rr_s: float | None = None,
+    fallback: str = "limit",
+) -> tuple[float, float]:
     """QRS onset and end around ``r``: where ``|deviation|`` (a slope) falls below ``threshold`` for good.
 
     Searching outward from ``r`` (at most ``before`` samples back and ``after``
     forward), the bound is the first crossing below ``threshold`` that is
-    followed by at least 30 ms below it, so the brief flat top of R or S does
-    not end the QRS (threshold delineation, common practice). Returned as
-    fractional sample positions, linearly interpolated at the crossing, so
-    low sampling rates do not quantise the width. Without a quiet run the
-    bound is the end of the search range.
+    followed by a quiet run of min(30 ms, 0.06 RR) below it (0.06 RR keeps
+    the run shorter than the PR and ST segments at high heart rates), so the
+    brief flat top of R or S does not end the QRS (threshold delineation,
+    common practice). Returned as fractional sample positions, linearly
+    interpolated at the crossing, so low sampling rates do not quantise the
+    width. Without a quiet run the bound is the end of the search range
+    (``fallback="limit"``, so callers can tell it was not found) or the
+    first slope minimum beyond the steepest QRS slope on that side
+    (``fallback="minimum"``: the P wave or T wave keeps the slope up, the
+    junction with the QRS is where it is lowest).
     """
-    run = max(2, int(round(0.03 * fs))) if fs else 3
+    seconds = 0.03 if rr_s is None else min(0.03, 0.06 * rr_s)
+    run = max(2, int(round(seconds * fs))) if fs else 3
     size = np.abs(deviation)
     quiet = size <= threshold
     hi = min(deviation.size, r + after + 1)
@@ -165,6 +188,9 @@ def qrs_bounds(deviation: np.ndarray, r: int, threshold: float, before: int, aft
     j = _first_quiet(quiet[r:hi], run)
     if j is None:
         offset = float(hi - 1)
+        if fallback == "minimum" and hi - r >= 3:
+            steep = r + int(np.argmax(size[r:hi]))
+            offset = float(steep + _first_valley(size[steep:hi]))
     else:
         last = r + j - 1  # last sample above the threshold
         a0, a1 = size[last], size[last + 1]
@@ -174,6 +200,9 @@ def qrs_bounds(deviation: np.ndarray, r: int, threshold: float, before: int, aft
     j = _first_quiet(back, run)
     if j is None:
         onset = float(lo)
+        if fallback == "minimum" and r + 1 - lo >= 3:
+            steep = lo + int(np.argmax(size[lo : r + 1]))
+            onset = float(steep - _first_valley(size[lo : steep + 1][::-1]))
     else:
         first = r - j + 1  # first sample above the threshold
         a0, a1 = size[first - 1], size[first]
