@@ -97,8 +97,8 @@ def swt_forward(x: np.ndarray, wavelet: str, level: int) -> tuple[np.ndarray, li
 
     The SWT at level ``j`` is the DWT of both decimation phases of every
     sub-series of level ``j - 1`` (Nason & Silverman 1995, The stationary
-    wavelet transform and some statistical applications, Lecture Notes in
-    Statistics 103:281-299). Here the ``2^j`` sub-series of level ``j`` are the
+    wavelet transform and some statistical applications, in: Wavelets and
+    Statistics, Springer LNS 103:281-299). Here the ``2^j`` sub-series of level ``j`` are the
     rows of a 2-D array and one ``pywt.dwt(..., mode='periodization',
     axis=-1)`` call per phase filters all of them, contiguously. The
     coefficients are those of ``pywt.swt`` (same values, rows instead of
@@ -194,8 +194,8 @@ def swt_shrink(
     The segment is extended (:func:`swt_extend`; the transform itself wraps
     around), transformed with :func:`swt_forward`, each detail level
     thresholded, inverted with :func:`swt_inverse` and cropped
-    (translation-invariant denoising, Coifman & Donoho 1995, Lecture Notes in
-    Statistics 103:125-150).
+    (translation-invariant denoising, Coifman & Donoho 1995, in: Wavelets and
+    Statistics, Springer LNS 103:125-150).
 
     ``lams`` is one threshold per detail level (finest first), or a function
     that receives the decimation-phase-0 detail rows (finest first, as
