@@ -255,3 +255,19 @@ def test_edge_quiet_when_the_original_moves_at_its_edge(ecg):
     assert _severity(_assess(ecg, ecg.clean + ramp), "edge-artefact") is None
     assert _severity(_assess(moved, fc.edge_transient(ecg.clean, ecg, 0.6)), "edge-artefact") == "fail"
     assert _severity(_assess(moved, fc.edge_transient(ecg.clean, ecg, 0.25)), "edge-artefact") == "warn"
+
+
+def test_haar_staircase_after_baseline_removal_is_not_clipping():
+    # The cleaning also took out a 0.3 mV baseline offset: the original lies
+    # 0.3 mV above the staircase everywhere, which is not clipping (the
+    # removed part's local median is the baseline; PyWavelets Haar
+    # approximation as above).
+    import pywt
+
+    src = _ecg_at(360.0)
+    coeffs = pywt.wavedec(src.clean, "haar", level=3)
+    stair = pywt.waverec([coeffs[0]] + [np.zeros_like(c) for c in coeffs[1:]], "haar")[: src.clean.size]
+    from tracevet.assessment.signal_checks import clipped_runs
+
+    assert clipped_runs(src.clean + 0.3, stair, src.fs).shape[0] == 0
+    assert clipped_runs(src.clean + 0.3, np.minimum(src.clean, 0.8 * src.clean.max()), src.fs).shape[0] > 0

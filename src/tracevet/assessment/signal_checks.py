@@ -57,8 +57,9 @@ def clipped_runs(original: np.ndarray, cleaned: np.ndarray, fs: float) -> np.nda
     """Flat runs at the cleaned trace's extremes under which the original goes beyond the flat level.
 
     A flat run of the cleaned trace at its maximum (minimum) is clipping only
-    if the original, averaged over the run, lies above (below) the flat
-    level by more than ``max(3 s.e., 2 % of the cleaned trace's range)``,
+    if the original, averaged over the run and less the local baseline the
+    cleaning removed (median of the removed component within 0.25 s), lies
+    above (below) the flat level by more than ``max(3 s.e., 2 % of the cleaned trace's range)``,
     with s.e. = sigma / sqrt(run length) and sigma the robust (MAD of first
     differences / sqrt 2) noise of the removed component within 0.25 s of the
     run. A clipper cuts the original off at the level, so the original lies
@@ -88,7 +89,10 @@ def clipped_runs(original: np.ndarray, cleaned: np.ndarray, fs: float) -> np.nda
         sigma = 1.4826 * float(np.median(np.abs(steps - np.median(steps)))) / np.sqrt(2.0) if steps.size else 0.0
         level = float(cleaned[start])
         polarity = 1.0 if level >= hi - 1e-7 * span else -1.0
-        excess = polarity * (float(np.mean(original[start:end], dtype=np.float64)) - level)
+        # The removed part's local median is the baseline (wander) the
+        # cleaning took out there; only what the original has beyond it counts.
+        offset = float(np.median(removed))
+        excess = polarity * (float(np.mean(original[start:end], dtype=np.float64)) - offset - level)
         keep[i] = excess > max(3.0 * sigma / np.sqrt(end - start), 0.02 * span)
     return runs[keep]
 
