@@ -1,7 +1,7 @@
 """SHA-256 checksums of files and canonical JSON (FIPS PUB 180-4).
 
 Canonical JSON here means: keys sorted, no insignificant white space,
-pure ASCII with every other character as a ``\\uXXXX`` escape
+pure ASCII with every other character as a ``\\u`` escape of four hex digits
 (``json.dumps(..., sort_keys=True, separators=(",", ":"))``), so the same
 content always gives the same bytes and the same hash, and a log file shown
 with ``cat`` can never carry a terminal escape sequence.
