@@ -145,20 +145,22 @@ def stage_original(
     return StagedRecord(folder, source.name, meta)
 
 
-def write_durable(path: Path, data: bytes, mode: int | None = None) -> None:
+def write_durable(path: Path, data, mode: int | None = None) -> None:
     """Write a new file inside a scratch folder and fsync it.
 
+    ``data`` is the bytes, or a callable that writes them into the open
+    binary file (so a long recording is streamed, not held twice in memory).
     No temporary name is needed there: the whole folder becomes visible at
     once when it is renamed into place, after every file in it is on disk.
     """
     fd = os.open(str(path), os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
-    try:
-        view = memoryview(data)
-        while view:
-            view = view[os.write(fd, view):]
-        os.fsync(fd)
-    finally:
-        os.close(fd)
+    with os.fdopen(fd, "wb") as handle:
+        if callable(data):
+            data(handle)
+        else:
+            handle.write(data)
+        handle.flush()
+        os.fsync(handle.fileno())
     if mode is not None:
         os.chmod(path, mode)
 

@@ -30,7 +30,7 @@ from tracevet import __version__
 from tracevet.errors import InputError
 from tracevet.recording import Recording, read_recording
 from tracevet.recording.atomic import fsync_dir
-from tracevet.recording.io import format_recording
+from tracevet.recording.numpy_format import write_npz
 from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.ids import check_record_id, is_run_id, run_id_for, run_number
 from tracevet.workqueue.layout import ASSESSMENT_NAME, RUN_META, RUN_SETTINGS, QueuePaths
@@ -124,7 +124,7 @@ def build_run(
         origin, settings_dict, digest = "external", None, None
     else:
         cleaned_name = "cleaned.npz"
-        write_durable(folder / cleaned_name, format_recording(cleaned, ".npz"))
+        write_durable(folder / cleaned_name, lambda handle: write_npz(cleaned, handle))
         origin = "tracevet"
         settings_dict = jsonable(settings.to_dict())
         digest = settings.digest()
