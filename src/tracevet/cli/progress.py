@@ -52,8 +52,9 @@ class ProgressBar:
             tail = f"done in {_duration(elapsed)}"
         else:
             tail = ""
+        bar = "#" * filled + "-" * (self.width - filled)
         note = f"  {note}" if note else ""
-        return f"{self.label} [{'#' * filled}{'-' * (self.width - filled)}] {int(done)}/{total} {fraction * 100:3.0f}%{note}  {tail}".rstrip()
+        return f"{self.label} [{bar}] {int(done)}/{total} {fraction * 100:3.0f}%{note}  {tail}".rstrip()
 
     def update(self, done: float, total: int, note: str = "") -> None:
         """Show progress ``done`` of ``total`` (at most ten redraws a second on a terminal)."""

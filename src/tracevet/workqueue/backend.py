@@ -117,7 +117,9 @@ class LocalPoolBackend:
         try:
             return self._pool.submit(function, task)
         except BrokenProcessPool:
-            raise BackendLost("a worker process of the local pool ended unexpectedly; run 'tracevet clean' again") from None
+            raise BackendLost(
+                "a worker process of the local pool ended unexpectedly; run 'tracevet clean' again"
+            ) from None
 
     def _drain(self) -> None:
         while True:
@@ -141,7 +143,9 @@ class LocalPoolBackend:
         try:
             return handle.result()
         except BrokenProcessPool:
-            raise BackendLost("a worker process of the local pool ended unexpectedly; run 'tracevet clean' again") from None
+            raise BackendLost(
+                "a worker process of the local pool ended unexpectedly; run 'tracevet clean' again"
+            ) from None
 
     def retries(self, handles) -> dict:
         """The local pool does not retry."""

@@ -270,7 +270,9 @@ def _worker_text(result) -> str | None:
     return worker.get("address") or (f"{worker.get('host')}:{worker.get('pid')}" if worker else None)
 
 
-def _store(queue, task: RecordTask, result, error: str | None, versions: dict, digest: str, worker, retries: int) -> CleanOutcome:
+def _store(
+    queue, task: RecordTask, result, error: str | None, versions: dict, digest: str, worker, retries: int
+) -> CleanOutcome:
     """Check a worker's result and store it as a run (this process is the queue's only writer)."""
     from tracevet.cleaning import CleaningSettings
     from tracevet.errors import TracevetError
@@ -285,14 +287,22 @@ def _store(queue, task: RecordTask, result, error: str | None, versions: dict, d
         settings = CleaningSettings.from_dict(task.settings, source=f"{task.record_id}: settings")
         extra = {"worker": result.worker, "software": result.versions, "worker_seconds": round(result.seconds, 3)}
         run_id = queue.store_run(
-            task.record_id, result.cleaned, result.assessment, settings, update_index=False, batch_token=task.token, extra=extra
+            task.record_id,
+            result.cleaned,
+            result.assessment,
+            settings,
+            update_index=False,
+            batch_token=task.token,
+            extra=extra,
         )
         assessment = result.assessment
-        return CleanOutcome(task.record_id, run_id, assessment.worst_severity, len(assessment.flags), retries=retries, worker=worker)
+        severity, n_flags = assessment.worst_severity, len(assessment.flags)
+        return CleanOutcome(task.record_id, run_id, severity, n_flags, retries=retries, worker=worker)
     except TracevetError as exc:
         return CleanOutcome(task.record_id, error=exc.one_line(), retries=retries, worker=worker)
     except OSError as exc:
-        return CleanOutcome(task.record_id, error=f"could not store the run ({inert(exc, 160)})", retries=retries, worker=worker)
+        problem = f"could not store the run ({inert(exc, 160)})"
+        return CleanOutcome(task.record_id, error=problem, retries=retries, worker=worker)
 
 
 def clean_one(root: str, record_id: str, settings: dict) -> CleanOutcome:
@@ -312,4 +322,5 @@ def clean_one(root: str, record_id: str, settings: dict) -> CleanOutcome:
         from tracevet.workqueue.backend import describe_failure
 
         result, error = None, describe_failure(exc)
-    return _store(queue, task, result, error, versions, _digests([(record_id, settings)])[record_id], _worker_text(result), 0)
+    digest = _digests([(record_id, settings)])[record_id]
+    return _store(queue, task, result, error, versions, digest, _worker_text(result), 0)

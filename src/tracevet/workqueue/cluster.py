@@ -38,7 +38,15 @@ ENV_VAR = "TRACEVET_CLUSTER"
 SCHEMES = ("tcp", "tls")
 DEFAULT_RETRIES = 2
 _HOST = re.compile(r"^(?:[A-Za-z0-9](?:[A-Za-z0-9.-]{0,251}[A-Za-z0-9])?|\[[0-9A-Fa-f:.]{2,45}\])$")
-_KEYS = ("address", "shared_filesystem", "retries", "tls_ca_file", "tls_client_cert", "tls_client_key", "connect_timeout")
+_KEYS = (
+    "address",
+    "shared_filesystem",
+    "retries",
+    "tls_ca_file",
+    "tls_client_cert",
+    "tls_client_key",
+    "connect_timeout",
+)
 
 
 @dataclass(frozen=True)
@@ -117,7 +125,9 @@ def cluster_settings(value: object, source: str) -> ClusterSettings:
     if isinstance(retries, bool) or not isinstance(retries, int) or not 0 <= retries <= 20:
         raise InputError(f"{source}.retries", "must be a whole number from 0 to 20")
     timeout = value.get("connect_timeout")
-    if timeout is not None and (isinstance(timeout, bool) or not isinstance(timeout, (int, float)) or not 0 < timeout <= 3600):
+    if timeout is not None and (
+        isinstance(timeout, bool) or not isinstance(timeout, (int, float)) or not 0 < timeout <= 3600
+    ):
         raise InputError(f"{source}.connect_timeout", "must be a number of seconds (0 to 3600)")
     files = {}
     for key in ("tls_ca_file", "tls_client_cert", "tls_client_key"):
@@ -145,7 +155,9 @@ def choose_cluster(option: str | None, queue_setting: object, queue_source: str 
     """
     if local:
         return None
-    from_queue = None if queue_setting in (None, "", {}) else cluster_settings(queue_setting, f"{queue_source}: cluster")
+    from_queue = (
+        None if queue_setting in (None, "", {}) else cluster_settings(queue_setting, f"{queue_source}: cluster")
+    )
     for text, source in ((option, "--cluster"), (os.environ.get(ENV_VAR), f"${ENV_VAR}")):
         if text is not None and (text.strip() or source == "--cluster"):
             address = parse_address(text, source)
@@ -172,7 +184,9 @@ class DaskBackend:
         try:
             import distributed
         except ImportError:
-            raise InputError(settings.source, "running on a cluster needs Dask: pip install 'tracevet[cluster]'") from None
+            raise InputError(
+                settings.source, "running on a cluster needs Dask: pip install 'tracevet[cluster]'"
+            ) from None
         self._distributed = distributed
         security = None
         if settings.tls_ca_file or settings.tls_client_cert:
@@ -196,7 +210,9 @@ class DaskBackend:
                 kwargs["security"] = security
             self.client = distributed.Client(settings.address, **kwargs)
         except Exception as exc:  # OSError, TimeoutError, TLS errors: all one line
-            raise InputError(settings.source, f"cannot reach the Dask scheduler at {where} ({_first_line(exc)})") from None
+            raise InputError(
+                settings.source, f"cannot reach the Dask scheduler at {where} ({_first_line(exc)})"
+            ) from None
         try:
             self.client.wait_for_workers(1, timeout=timeout)
             self.slots = max(1, sum(self.client.nthreads().values()))
@@ -263,7 +279,9 @@ class DaskBackend:
         if handle.status == "cancelled":
             self.check()
             if self.client.status != "running":
-                raise BackendLost(f"lost the Dask scheduler at {inert(self.address, 80)}; run 'tracevet clean' again to carry on")
+                raise BackendLost(
+                    f"lost the Dask scheduler at {inert(self.address, 80)}; run 'tracevet clean' again to carry on"
+                )
         try:
             return handle.result()
         except self._distributed.KilledWorker:
@@ -273,6 +291,7 @@ class DaskBackend:
 
     def retries(self, handles) -> dict:
         """Extra attempts per future (worker deaths and retries), asked of the scheduler."""
+
         def counts_on_scheduler(dask_scheduler=None, keys=(), retries=0):
             # defined here so that it travels by value: the scheduler need not have tracevet installed
             counts = {}

@@ -33,7 +33,16 @@ from tracevet.safe_yaml import load_yaml
 from tracevet.workqueue.layout import FORMAT_VERSION, MARKER_KEY
 
 DEFAULT_IDLE_MINUTES = 30.0
-_KNOWN_KEYS = {MARKER_KEY, "queue_id", "created", "cleaning", "flag_limits", "defaults", "claim_idle_minutes", "cluster"}
+_KNOWN_KEYS = {
+    MARKER_KEY,
+    "queue_id",
+    "created",
+    "cleaning",
+    "flag_limits",
+    "defaults",
+    "claim_idle_minutes",
+    "cluster",
+}
 
 
 def utc_now_text() -> str:
@@ -116,7 +125,10 @@ class QueueSettings:
             f"claim_idle_minutes: {self.claim_idle_minutes:g}",
         ]
         if self.cluster not in (None, "", {}):
-            lines += ["# Dask scheduler 'tracevet clean' sends work to (docs/cluster.md)", dump({"cluster": self.cluster})]
+            lines += [
+                "# Dask scheduler 'tracevet clean' sends work to (docs/cluster.md)",
+                dump({"cluster": self.cluster}),
+            ]
         return "\n".join(lines) + "\n"
 
 
@@ -168,7 +180,10 @@ def read_settings(path: Path) -> QueueSettings:
     if not isinstance(data, dict) or MARKER_KEY not in data:
         raise InputError(source, f"not a tracevet queue settings file (no '{MARKER_KEY}:' key)")
     if data[MARKER_KEY] != FORMAT_VERSION:
-        raise InputError(source, f"queue format {str(data[MARKER_KEY])[:20]!r} is not supported (this tracevet reads {FORMAT_VERSION})")
+        raise InputError(
+            source,
+            f"queue format {str(data[MARKER_KEY])[:20]!r} is not supported (this tracevet reads {FORMAT_VERSION})",
+        )
     unknown = sorted(str(k) for k in data if k not in _KNOWN_KEYS)
     if unknown:
         raise InputError(source, f"unknown setting(s): {', '.join(unknown)[:100]}")
@@ -191,7 +206,9 @@ def read_settings(path: Path) -> QueueSettings:
         flag_limits=limits,
         default_kind=_check_kind(defaults.get("kind", "ecg"), f"{source}: defaults.kind"),
         default_units=normalise_units(defaults.get("units"), f"{source}: defaults.units"),
-        claim_idle_minutes=_check_minutes(data.get("claim_idle_minutes", DEFAULT_IDLE_MINUTES), f"{source}: claim_idle_minutes"),
+        claim_idle_minutes=_check_minutes(
+            data.get("claim_idle_minutes", DEFAULT_IDLE_MINUTES), f"{source}: claim_idle_minutes"
+        ),
         source=source,
         cluster=_check_cluster(data.get("cluster"), f"{source}: cluster"),
     )

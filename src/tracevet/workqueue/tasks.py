@@ -231,13 +231,16 @@ def clean_record(task: RecordTask) -> RecordResult:
     result = RecordResult(task.record_id, task.token, worker=worker_identity(), versions=software_versions())
     difference = version_difference(task.versions, result.versions)
     if difference is not None:
-        result.error = f"refused: worker {inert(result.worker.get('address') or result.worker['host'], 60)} runs other software ({difference})"
+        who = inert(result.worker.get("address") or result.worker["host"], 60)
+        result.error = f"refused: worker {who} runs other software ({difference})"
         return result
     try:
         original, digest = _read_original(task)
         result.input_sha256 = digest
         if original is None:
-            result.error = "the original read on the worker does not match its checksum (changed, or not the queue's file)"
+            result.error = (
+                "the original read on the worker does not match its checksum (changed, or not the queue's file)"
+            )
             return result
         settings = CleaningSettings.from_dict(task.settings, source=f"{task.record_id}: settings")
         limits = limits_from_mapping(task.flag_limits, "flag_limits") if task.flag_limits else None
