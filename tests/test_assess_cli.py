@@ -22,7 +22,9 @@ def files(tmp_path_factory):
     folder = tmp_path_factory.mktemp("assess")
     rec = syn.synthetic_ecg(20.0, 360.0, heart_rate_bpm=72.0, seed=21)
     noisy = rec.signal + syn.white_noise(rec.signal.size, 0.03, seed=22)
-    src = fc.Source("t", rec.signal, noisy, 360.0, rec.r_peaks, rec.fiducials["P"], rec.fiducials["T"], "ecg", "mV", 1.0)
+    src = fc.Source(
+        "t", rec.signal, noisy, 360.0, rec.r_peaks, rec.fiducials["P"], rec.fiducials["T"], "ecg", "mV", 1.0
+    )
 
     def save(name, values, **meta):
         path = folder / name
@@ -67,7 +69,9 @@ def test_json_is_exactly_one_object_with_the_contract(run_cli_process, files):
 def test_limits_file_and_save_folder(run_cli, files, tmp_path):
     limits = tmp_path / "limits.yaml"
     limits.write_text("flag_limits:\n  r-peak-change: off\n  removed-beat-structure: off\n  beat-shape-change: off\n")
-    code, out, err = run_cli("assess", files["original"], files["flattened"], "--limits", limits, "--save", tmp_path, "--json")
+    code, out, err = run_cli(
+        "assess", files["original"], files["flattened"], "--limits", limits, "--save", tmp_path, "--json"
+    )
     doc = json.loads(out)
     assert not [f for f in doc["flags"] if f["id"] in ("r-peak-change", "removed-beat-structure", "beat-shape-change")]
     assert (tmp_path / "assessment.json").exists() and (tmp_path / "beats.npz").exists()

@@ -106,7 +106,9 @@ def _regions(flags: list[Flag], peaks_s: np.ndarray, pre_s: float, post_s: float
     for flag in flags:
         span = _REGION_SPAN.get(flag.id)
         if span is not None and peaks_s.size:
-            lo, hi = {"qrs": (-0.1, 0.1), "after": (0.0, post_s), "before": (-pre_s, 0.0), "beat": (-pre_s, post_s)}[span]
+            lo, hi = {"qrs": (-0.1, 0.1), "after": (0.0, post_s), "before": (-pre_s, 0.0), "beat": (-pre_s, post_s)}[
+                span
+            ]
             rows.extend(zip((peaks_s + lo).tolist(), (peaks_s + hi).tolist(), [flag.id] * peaks_s.size))
         for start, end in extra.get(flag.id, ()):
             rows.append((float(start), float(end), flag.id))

@@ -135,7 +135,9 @@ def _json_number(value):
     return value if value == value and abs(value) != float("inf") else None
 
 
-def grade(value: float | None, warn: float | None, fail: float | None, allowance: float = 0.0) -> tuple[str | None, float | None]:
+def grade(
+    value: float | None, warn: float | None, fail: float | None, allowance: float = 0.0
+) -> tuple[str | None, float | None]:
     """Severity of ``value`` against (warn, fail), each widened to ``allowance``.
 
     Returns (severity or None, the limit that was crossed or, when none was,

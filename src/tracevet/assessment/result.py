@@ -131,7 +131,9 @@ class Assessment:
         np.savez_compressed(buffer, **arrays)
         write_bytes_atomic(folder / BEATS_NAME, buffer.getvalue())
         document = self.to_json_dict()
-        document["context"] = dict(self.context, beat_count=int(self.beat_count), flag_channels=[f.channel for f in self.flags])
+        document["context"] = dict(
+            self.context, beat_count=int(self.beat_count), flag_channels=[f.channel for f in self.flags]
+        )
         write_text_atomic(folder / JSON_NAME, json.dumps(document, indent=2, allow_nan=False) + "\n")
 
     @classmethod
