@@ -2,7 +2,7 @@
 
 Contract for scripts (keep stable): with ``--json`` exactly one JSON object on
 stdout, ``{"metrics": {...}, "flags": [{"id", "severity", "message", "value",
-"limit", "source"}, ...]}``; exit 0 when no flag is ``fail``, 1 when at least
+"limit", "source", "where", "where_more", "beats_affected", "beats_measured"}, ...]}``; exit 0 when no flag is ``fail``, 1 when at least
 one is, 2 with one line on stderr for bad input or usage.
 """
 
@@ -122,6 +122,7 @@ def report_text(result, original: Recording, args: argparse.Namespace) -> str:
         lines.append(f"flags ({len(result.flags)}):")
         for flag in result.flags:
             lines.append(f"  {flag.severity.upper():4s} {flag.id}: {inert(flag.message)}")
+            lines.append(f"       where: {flag.where_text()}")
             lines.append(f"       source: {inert(flag.source)}")
     else:
         lines.append("flags: none")
