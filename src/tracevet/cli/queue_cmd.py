@@ -200,10 +200,10 @@ def cmd_init(args) -> int:
     if args.profile or args.overrides:
         from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, load_profile
 
-        settings = load_profile(args.profile) if args.profile else DEFAULT_SETTINGS
+        chosen = load_profile(args.profile) if args.profile else DEFAULT_SETTINGS
         if args.overrides:
-            settings = apply_overrides(settings, args.overrides)
-        cleaning = settings.to_dict()
+            chosen = apply_overrides(chosen, args.overrides)
+        cleaning = chosen.to_dict()
     settings = new_settings(
         cleaning=cleaning, kind=args.kind, units=args.units, claim_idle_minutes=args.claim_idle_minutes
     )

@@ -151,7 +151,7 @@ def clean_waiting(
     queue,
     workers: int = 2,
     overrides: list[str] | None = None,
-    progress: Callable[[int, int, CleanOutcome | None], None] | None = None,
+    progress: Callable[[float, int, CleanOutcome | None], None] | None = None,
     cluster=None,
     backend=None,
 ) -> list[CleanOutcome]:

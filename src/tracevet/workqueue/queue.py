@@ -6,7 +6,7 @@ import getpass
 import os
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import Callable, Iterable, Sequence
+from typing import Any, Callable, Iterable, Sequence
 
 from tracevet.errors import InputError, TracevetError
 from tracevet.recording import Recording, read_recording
@@ -529,11 +529,13 @@ class Queue:
 
     # ----------------------------------------------------------------- adding
     def _existing_checksums(self) -> dict[str, str]:
-        return {s.get("original_sha256"): r for r, s in self._index().records.items() if s.get("original_sha256")}
+        return {
+            str(s["original_sha256"]): r for r, s in self._index().records.items() if s.get("original_sha256")
+        }
 
     def _read_input(self, path: Path, fs, kind, units) -> Recording:
         recording = read_recording(path, fs=fs, kind=kind, units=units)
-        changes = {}
+        changes: dict[str, Any] = {}
         if kind is None and recording.kind == "other" and self.settings.default_kind != "other":
             changes["kind"] = self.settings.default_kind
         if units is None and recording.units is None and self.settings.default_units:

@@ -203,7 +203,7 @@ def _read_original(task: RecordTask):
         return recording, digest
     from tracevet.workqueue.checksums import sha256_file
 
-    path = Path(task.path)
+    path = Path(str(task.path))
     digest = sha256_file(path)
     if digest != task.original_sha256:
         return None, digest
