@@ -144,6 +144,12 @@ def describe_change(settings: CleaningSettings, reference: CleaningSettings) -> 
     return ", ".join(parts) if parts else "same settings"
 
 
+def count_changes(settings: CleaningSettings, reference: CleaningSettings) -> int:
+    """How many settings differ from ``reference``."""
+    mine, theirs = settings.to_dict(), reference.to_dict()
+    return sum(1 for k in mine if mine[k] != theirs[k])
+
+
 def upper_bound(fs: float, base: CleaningSettings) -> int:
     """Most settings the search can evaluate for rate ``fs`` (for progress reports)."""
     probe = base

@@ -21,7 +21,8 @@ the cleaning removed:
 * ``noise_in``  = off-beat power of ``x`` (noise before cleaning),
 * ``noise_left`` = off-beat power of ``y`` (noise the cleaning left),
 * ``signal_lost`` = mean square of the template of ``r`` (what the cleaning
-  took away from every beat alike: lost signal, not noise),
+  took away from every beat alike: lost signal, not noise), less the noise a
+  median of N beats keeps (``pi/2`` times the off-beat power of ``r`` over N),
 
 and the **noise removed** is ``10 log10(noise_in / (noise_left + signal_lost))``
 in dB. It estimates the SNR gain ``10 log10(|x - s|^2 / |y - s|^2)`` against
@@ -137,8 +138,12 @@ def estimate(original: np.ndarray, cleaned: np.ndarray, peaks: np.ndarray, fs: f
     noise_left, _ = _off_beat_power(y)
     removed = x - y
     removed -= np.median(removed)
-    lost_template = np.median(removed, axis=0)
-    return NoiseEstimate(noise_in, noise_left, float(np.mean(lost_template * lost_template)), int(starts.size))
+    removed_noise, lost_template = _off_beat_power(removed)
+    # The template is a median of N rows: it keeps noise of variance pi sigma^2 / (2 N)
+    # (large-sample variance of the median of normal data, common practice), which is
+    # not lost signal and is taken out.
+    lost = float(np.mean(lost_template * lost_template)) - 0.5 * math.pi * removed_noise / starts.size
+    return NoiseEstimate(noise_in, noise_left, max(0.0, lost), int(starts.size))
 
 
 def pooled_removed_db(estimates: list[NoiseEstimate]) -> float | None:

@@ -47,6 +47,8 @@ class CandidateResult:
         ``base``, ``current`` and/or ``searched``.
     error : str or None
         Why the settings could not be used on this record (then nothing else is set).
+    n_changes : int
+        How many settings differ from the base settings.
     """
 
     settings: CleaningSettings
@@ -58,6 +60,7 @@ class CandidateResult:
     scope: str = "whole record"
     roles: tuple = ("searched",)
     error: str | None = None
+    n_changes: int = 0
 
     @property
     def n_fail(self) -> int:
@@ -118,13 +121,14 @@ def _number(value):
 
 def rank_key(c: CandidateResult) -> tuple:
     """Sort key, best first: no fail flag, then no warn flag (fewer flags before more),
-    then the most noise removed (in steps of :data:`TIE_DB`), then the least beat shape change."""
+    then the most noise removed (in steps of :data:`TIE_DB`), then the least beat shape change,
+    then the fewest settings changed from the base."""
     if c.error is not None:
-        return (True, True, 1 << 30, 1 << 30, math.inf, math.inf)
+        return (True, True, 1 << 30, 1 << 30, math.inf, math.inf, 1 << 30)
     noise = c.noise_removed_db
     step = math.inf if noise is None else -math.floor(noise / TIE_DB)
     shape = c.shape_change_percent if c.shape_change_percent is not None else 0.0
-    return (c.n_fail > 0, c.n_warn > 0, c.n_fail, c.n_warn, step, shape)
+    return (c.n_fail > 0, c.n_warn > 0, c.n_fail, c.n_warn, step, shape, c.n_changes)
 
 
 def candidate_set_digest(candidates: list[CandidateResult], windows: list[tuple[float, float]]) -> str:
@@ -176,7 +180,13 @@ def _deciding_step(best: CandidateResult, nxt: CandidateResult) -> str:
         return f"the chosen settings remove {a - b:.1f} dB more noise (estimated)"
     sa, sb = best.shape_change_percent or 0.0, nxt.shape_change_percent or 0.0
     if sa != sb:
-        return f"both remove about as much noise; the chosen settings change the beat shape less ({sa:.1f} % against {sb:.1f} %)"
+        digits = 1 if abs(sa - sb) >= 0.05 else 3
+        return (
+            f"both remove about as much noise; the chosen settings change the beat shape less "
+            f"({sa:.{digits}f} % against {sb:.{digits}f} %)"
+        )
+    if best.n_changes != nxt.n_changes:
+        return "both are equal on flags, noise removed and shape change; the chosen settings change fewer settings from the base"
     return "the two are equal on every ranking step; the earlier in the search order is kept"
 
 

@@ -275,6 +275,7 @@ class _Evaluator:
             metrics=_key_metrics(metric_dicts),
             scope=self.scope,
             roles=(role,),
+            n_changes=cand.count_changes(settings, self.base),
         )
         return outcome, kept
 
@@ -299,6 +300,7 @@ class _Evaluator:
             metrics=_key_metrics([result.metrics]),
             scope="whole record",
             roles=roles,
+            n_changes=cand.count_changes(settings, self.base),
         )
         return outcome, cleaned, result
 
