@@ -61,12 +61,14 @@ def _apply_filters(buf: np.ndarray, fs: float, settings: CleaningSettings, block
     for sos, lowest in stages:
         overlap = filters.settle_samples(fs, lowest)
         blocks = plan_blocks(buf.shape[0], max(block_samples, 4 * overlap), overlap)
-        process_inplace(
-            buf,
-            blocks,
-            lambda seg, _b, sos=sos, lowest=lowest: filters.zero_phase(seg, sos, fs, lowest),
-            after_block=lambda i, n=len(blocks): report((i + 1) / n),
-        )
+
+        def stage(seg, _block, sos=sos, lowest=lowest):
+            return filters.zero_phase(seg, sos, fs, lowest)
+
+        def block_done(i, n=len(blocks)):
+            report((i + 1) / n)
+
+        process_inplace(buf, blocks, stage, after_block=block_done)
 
 
 
@@ -210,7 +212,9 @@ def clean(
         if progress is not None:
             sub = lambda f, c=c: progress((c + f) / n_channels)  # noqa: E731
         if n_channels == 1:
-            clean_channel(samples[:, 0], recording.fs, settings, recording.source, sub, block_samples, out=result.reshape(n))
+            clean_channel(
+                samples[:, 0], recording.fs, settings, recording.source, sub, block_samples, out=result.reshape(n)
+            )
         else:
             result[:, c] = clean_channel(samples[:, c], recording.fs, settings, recording.source, sub, block_samples)
     if progress is not None:
