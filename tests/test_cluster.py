@@ -110,6 +110,27 @@ def test_clean_without_dask_installed_says_how_to_get_it(tmp_path, capsys, monke
     assert _state_of(queue.root) == before
 
 
+def test_an_unreachable_scheduler_named_in_the_queue_settings_is_one_line_and_nothing_written(tmp_path, capsys):
+    pytest.importorskip("distributed")
+    import socket
+    from dataclasses import replace
+
+    from tracevet.workqueue import new_settings
+
+    with socket.socket() as probe:  # a port nothing listens on
+        probe.bind(("127.0.0.1", 0))
+        port = probe.getsockname()[1]
+    settings = replace(new_settings(), cluster={"address": f"tcp://127.0.0.1:{port}", "connect_timeout": 1})
+    queue = Queue.init(tmp_path / "q", settings)
+    assert Queue.open(queue.root).settings.cluster["connect_timeout"] == 1  # the setting survives queue.yaml
+    queue.add_files([_ecg_file(tmp_path / "q-in" / "dive.npz", 0)], added_by="mira")
+    before = _state_of(queue.root)
+    assert main(["clean", str(queue.root), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "cannot reach the Dask scheduler" in err
+    assert _state_of(queue.root) == before
+
+
 def test_the_core_never_imports_dask():
     code = (
         "import sys; from tracevet.cli.main import build_parser; build_parser(); "

@@ -117,9 +117,7 @@ class LocalPoolBackend:
         try:
             return self._pool.submit(function, task)
         except BrokenProcessPool:
-            raise BackendLost(
-                "a worker process of the local pool ended unexpectedly; run 'tracevet clean' again"
-            ) from None
+            raise BackendLost("a worker process of the local pool ended unexpectedly") from None
 
     def _drain(self) -> None:
         while True:
@@ -143,9 +141,7 @@ class LocalPoolBackend:
         try:
             return handle.result()
         except BrokenProcessPool:
-            raise BackendLost(
-                "a worker process of the local pool ended unexpectedly; run 'tracevet clean' again"
-            ) from None
+            raise BackendLost("a worker process of the local pool ended unexpectedly") from None
 
     def retries(self, handles) -> dict:
         """The local pool does not retry."""
@@ -164,6 +160,7 @@ def run_tasks(
     on_result: Callable[[Any, Any, str | None, int], None],
     max_in_flight: int,
     on_wait: Callable[[], None] | None = None,
+    keep: Callable[[Any], Any] | None = None,
 ) -> int:
     """Run ``function(task)`` for every task on ``backend``; return the number of retries seen.
 
@@ -184,6 +181,10 @@ def run_tasks(
     max_in_flight : int
     on_wait : callable, optional
         Called after every wait (about four times a second), e.g. to flush.
+    keep : callable, optional
+        ``keep(task)`` is what the loop holds for ``on_result`` once the task
+        is submitted (e.g. the task without the original's bytes, so they
+        are not held here while the worker cleans).
 
     Raises
     ------
@@ -200,7 +201,9 @@ def run_tasks(
             task = next(source, None)
             if task is None:
                 return
-            in_flight[backend.submit(function, task)] = task
+            handle = backend.submit(function, task)
+            in_flight[handle] = keep(task) if keep is not None else task
+            del task
 
     fill()
     while in_flight:

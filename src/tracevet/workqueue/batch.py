@@ -22,12 +22,12 @@ from __future__ import annotations
 import os
 import time
 import uuid
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Callable, Iterator
 
 from tracevet.errors import InputError
 from tracevet.text import inert
-from tracevet.workqueue.backend import InlineBackend, LocalPoolBackend, run_tasks
+from tracevet.workqueue.backend import BackendLost, InlineBackend, LocalPoolBackend, run_tasks
 from tracevet.workqueue.ids import run_number
 from tracevet.workqueue.index import SENT_BACK, TO_CLEAN
 from tracevet.workqueue.locking import try_hold
@@ -247,7 +247,13 @@ def clean_waiting(
                 on_result,
                 max_in_flight=slots * IN_FLIGHT_PER_WORKER if slots > 1 else 1,
                 on_wait=flush,
+                keep=lambda task: replace(task, data=None),
             )
+        except BackendLost as exc:
+            stored = sum(1 for o in outcomes if o.run_id)
+            raise BackendLost(
+                f"{exc.one_line()}; the {stored} run(s) stored before stay, run 'tracevet clean' again to carry on"
+            ) from None
         finally:
             flush(force=True)
         return outcomes

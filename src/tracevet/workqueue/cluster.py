@@ -22,6 +22,7 @@ expose a scheduler port beyond the lab network (docs/cluster.md).
 
 from __future__ import annotations
 
+import logging
 import os
 import re
 import time
@@ -188,6 +189,9 @@ class DaskBackend:
                 settings.source, "running on a cluster needs Dask: pip install 'tracevet[cluster]'"
             ) from None
         self._distributed = distributed
+        # Dask's own log lines (reconnect attempts, closed comms) would break the one-line rule on
+        # stderr: the batch reports what matters itself. Restored when the backend closes.
+        self._log_levels = _quiet_loggers()
         security = None
         if settings.tls_ca_file or settings.tls_client_cert:
             security = distributed.Security(
@@ -210,6 +214,7 @@ class DaskBackend:
                 kwargs["security"] = security
             self.client = distributed.Client(settings.address, **kwargs)
         except Exception as exc:  # OSError, TimeoutError, TLS errors: all one line
+            _restore_loggers(self._log_levels)
             raise InputError(
                 settings.source, f"cannot reach the Dask scheduler at {where} ({_first_line(exc)})"
             ) from None
@@ -257,10 +262,7 @@ class DaskBackend:
     def check(self) -> None:
         """BackendLost when the client has lost its scheduler for good."""
         if self.client.status in ("closing", "closed", "failed"):
-            raise BackendLost(
-                f"lost the Dask scheduler at {inert(self.address, 80)}; the runs stored so far stay, "
-                "run 'tracevet clean' again to carry on"
-            )
+            raise BackendLost(f"lost the Dask scheduler at {inert(self.address, 80)}")
 
     def wait(self, handles: set, timeout: float) -> set:
         """Futures among ``handles`` finished within ``timeout`` seconds (via ``as_completed``)."""
@@ -279,9 +281,7 @@ class DaskBackend:
         if handle.status == "cancelled":
             self.check()
             if self.client.status != "running":
-                raise BackendLost(
-                    f"lost the Dask scheduler at {inert(self.address, 80)}; run 'tracevet clean' again to carry on"
-                )
+                raise BackendLost(f"lost the Dask scheduler at {inert(self.address, 80)}")
         try:
             return handle.result()
         except self._distributed.KilledWorker:
@@ -315,6 +315,25 @@ class DaskBackend:
             self.client.close(timeout=10)
         except Exception:
             pass
+        finally:
+            _restore_loggers(self._log_levels)
+
+
+def _quiet_loggers() -> dict:
+    """Silence Dask's, Tornado's and asyncio's loggers below CRITICAL; return their levels to restore."""
+    names = ["distributed", "tornado", "asyncio"]
+    names += [n for n in list(logging.Logger.manager.loggerDict) if n.split(".")[0] in ("distributed", "tornado")]
+    levels = {}
+    for name in dict.fromkeys(names):
+        logger = logging.getLogger(name)
+        levels[name] = logger.level
+        logger.setLevel(logging.CRITICAL)
+    return levels
+
+
+def _restore_loggers(levels: dict) -> None:
+    for name, level in levels.items():
+        logging.getLogger(name).setLevel(level)
 
 
 def _first_line(exc: BaseException) -> str:
