@@ -47,7 +47,12 @@ Changes
 
 Batch work
     :func:`tracevet.workqueue.batch.clean_waiting` and
-    :func:`tracevet.workqueue.export.export_accepted`.
+    :func:`tracevet.workqueue.export.export_accepted`. A batch's records are
+    cleaned by :func:`tracevet.workqueue.tasks.clean_record` (pure: task in,
+    cleaned samples and assessment out) on a backend of
+    :mod:`tracevet.workqueue.backend` (this process, the local pool, or a Dask
+    cluster from :mod:`tracevet.workqueue.cluster`); only the batch's own
+    process writes into the queue.
 
 States (``RecordSummary.state``): ``to-clean`` (waiting to be cleaned),
 ``to-review`` (ready for review), ``in-review`` (a reviewer holds it),

@@ -25,6 +25,8 @@ import uuid
 from dataclasses import dataclass, replace
 from typing import Callable, Iterator
 
+import numpy as np
+
 from tracevet.errors import InputError
 from tracevet.text import inert
 from tracevet.workqueue.backend import BackendLost, InlineBackend, LocalPoolBackend, run_tasks
@@ -119,7 +121,7 @@ def _tasks(queue, todo: list[tuple[str, dict]], token: str, versions: dict, send
             units=meta.get("units"),
             versions=versions,
             path=None if send_bytes else str(path),
-            data=path.read_bytes() if send_bytes else None,
+            data=np.frombuffer(path.read_bytes(), dtype=np.uint8) if send_bytes else None,
         )
 
 

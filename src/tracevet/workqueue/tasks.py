@@ -25,7 +25,7 @@ import tempfile
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import Any, Callable
 
 from tracevet.errors import TracevetError
 from tracevet.text import inert
@@ -114,8 +114,9 @@ class RecordTask:
         The client's :func:`software_versions`; a worker with others refuses the task.
     path : str or None
         Where the original is, on a filesystem the worker shares with the client.
-    data : bytes or None
-        The original's bytes (when no filesystem is shared).
+    data : numpy.ndarray of uint8, bytes, or None
+        The original's bytes (when no filesystem is shared); as a uint8 array
+        they pickle out of band (protocol 5), so sending a task copies no bytes.
     """
 
     record_id: str
@@ -129,7 +130,7 @@ class RecordTask:
     units: str | None
     versions: dict
     path: str | None = None
-    data: bytes | None = None
+    data: Any = None
 
 
 @dataclass
