@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import logging
 import os
+import pickle
 import re
 import time
 import uuid
@@ -168,6 +169,23 @@ def choose_cluster(option: str | None, queue_setting: object, queue_source: str 
     return from_queue
 
 
+def run_out_of_band(function: Callable, task: Any) -> tuple:
+    """On a worker: ``function(task)``, pickled with its large buffers apart, as ``(payload, [uint8 arrays])``.
+
+    Dask sends a top-level tuple element by element and NumPy arrays as
+    their own frames, received without a copy; a result object pickled as a
+    whole would have its large buffers merged, i.e. copied, on arrival. So
+    the cleaned samples of a day-long record cost the client their size
+    once, not twice. The client rebuilds the result with
+    ``pickle.loads(payload, buffers=buffers)`` (pickle protocol 5, PEP 574).
+    """
+    import numpy as np
+
+    buffers: list = []
+    payload = pickle.dumps(function(task), protocol=5, buffer_callback=buffers.append)
+    return payload, [np.frombuffer(buffer.raw(), dtype=np.uint8) for buffer in buffers]
+
+
 class DaskBackend:
     """Runs tasks on a Dask distributed scheduler through a ``distributed.Client``.
 
@@ -255,7 +273,9 @@ class DaskBackend:
         key = f"tracevet-{function.__name__}-{uuid.uuid4().hex}"
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # the original's bytes travel inside the task, on purpose
-            future = self.client.submit(function, task, key=key, pure=False, retries=self.settings.retries)
+            future = self.client.submit(
+                run_out_of_band, function, task, key=key, pure=False, retries=self.settings.retries
+            )
         self._completed.add(future)
         return future
 
@@ -283,7 +303,8 @@ class DaskBackend:
             if self.client.status != "running":
                 raise BackendLost(f"lost the Dask scheduler at {inert(self.address, 80)}")
         try:
-            return handle.result()
+            payload, buffers = handle.result()
+            return pickle.loads(payload, buffers=buffers)
         except self._distributed.KilledWorker:
             raise RuntimeError(
                 "every worker that cleaned it died (the scheduler's allowed-failures was reached); it stays waiting"
