@@ -19,6 +19,7 @@ from __future__ import annotations
 import hashlib
 import os
 import platform
+import shutil
 import socket
 import sys
 import tempfile
@@ -189,6 +190,16 @@ def _reporter(record_id: str) -> Callable[[float], None] | None:
     return report
 
 
+def _scratch_dir(size: int) -> str | None:
+    """``/dev/shm`` when it exists and has room for ``size`` bytes twice over, else None (the default)."""
+    try:
+        if os.access("/dev/shm", os.W_OK) and shutil.disk_usage("/dev/shm").free > 2 * size:
+            return "/dev/shm"
+    except OSError:
+        pass
+    return None
+
+
 def _read_original(task: RecordTask):
     """(Recording, SHA-256 of the bytes read) from the task's bytes or path."""
     from tracevet.recording import read_recording
@@ -197,10 +208,14 @@ def _read_original(task: RecordTask):
         digest = hashlib.sha256(task.data).hexdigest()
         if digest != task.original_sha256:
             return None, digest
-        with tempfile.TemporaryDirectory(prefix="tracevet-") as folder:
-            path = Path(folder) / Path(task.original_name).name
-            path.write_bytes(task.data)
-            recording = read_recording(path, fs=task.read_fs, kind=task.kind, units=task.units)
+        # The readers take a file name (the extension picks the format): a temporary file, in memory
+        # (/dev/shm) when there is room, as creating and removing files on a busy disk costs more
+        # than cleaning a short record.
+        suffix = Path(task.original_name).suffix
+        with tempfile.NamedTemporaryFile(prefix="tracevet-", suffix=suffix, dir=_scratch_dir(len(task.data))) as handle:
+            handle.write(memoryview(task.data))
+            handle.flush()
+            recording = read_recording(handle.name, fs=task.read_fs, kind=task.kind, units=task.units)
         return recording, digest
     from tracevet.workqueue.checksums import sha256_file
 
