@@ -83,6 +83,11 @@ def register(subparsers) -> None:
         help="change a cleaning setting for this batch",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument(
+        "--suggest",
+        action="store_true",
+        help="then, for each record whose newest run has flags, add a run made with suggested settings (docs/suggest.md)",
+    )
     p.set_defaults(func=cmd_clean)
 
     p = subparsers.add_parser(
@@ -261,9 +266,14 @@ def cmd_clean(args) -> int:
     outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress)
     made = [o for o in outcomes if o.run_id]
     flagged = Counter(o.worst_severity or "none" for o in made)
+    suggest_code = 0
+    if getattr(args, "suggest", False):
+        from tracevet.cli.suggest_cmd import suggest_pass
+
+        suggest_code = suggest_pass(queue, args)
     if not outcomes:
         print("nothing waiting to be cleaned")
-        return 0
+        return suggest_code
     print(
         f"cleaned {len(made)} record(s): {flagged.get('fail', 0)} with fail flags, {flagged.get('warn', 0)} with "
         f"warnings, {flagged.get('none', 0)} without flags"
@@ -277,7 +287,7 @@ def cmd_clean(args) -> int:
             file=sys.stderr,
         )
         return 1
-    return 0
+    return suggest_code
 
 
 # -------------------------------------------------------------------- status

@@ -415,6 +415,9 @@ class Queue:
             "flags": info.flags,
             "worst_severity": info.worst_severity,
         }
+        if info.suggestion is not None:  # a decision on a suggested run says so
+            body["suggested"] = True
+            body["candidate_set_digest"] = info.suggestion.get("candidate_set_digest")
         if requested is not None:
             body["requested_settings"] = requested.to_dict()
             body["requested_settings_digest"] = requested.digest()
@@ -486,12 +489,16 @@ class Queue:
         settings,
         made_by: str | None = None,
         update_index: bool = True,
+        suggestion: dict | None = None,
     ) -> str:
-        """Write an already computed run into the record (whole or not at all); return its id."""
+        """Write an already computed run into the record (whole or not at all); return its id.
+
+        ``suggestion`` (``Suggestion.summary()``) marks a run made with suggested settings.
+        """
         record_id = check_record_id(record_id)
         folder = work_folder(self.paths, "run")
         try:
-            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by)
+            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by, suggestion=suggestion)
             run_id = commit_run(self.paths, record_id, folder, meta)
         except BaseException:
             _remove_tree(folder)

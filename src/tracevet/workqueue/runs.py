@@ -70,6 +70,10 @@ class RunInfo:
         SHA-256 of every data file of the run, by file name.
     made_by : str or None
         Reviewer who asked for the run (app re-runs), if any.
+    suggestion : dict or None
+        For a run made with suggested settings (``tracevet clean --suggest``, the
+        review app): ``candidate_set_digest``, ``candidates_evaluated``,
+        ``searched_on``, ``noise_removed_db``, ``reason``. None otherwise.
     """
 
     run_id: str
@@ -83,6 +87,7 @@ class RunInfo:
     cleaned_file: str = "cleaned.npz"
     files: dict = field(default_factory=dict)
     made_by: str | None = None
+    suggestion: dict | None = None
 
     @property
     def cleaned_sha256(self) -> str | None:
@@ -110,12 +115,14 @@ def build_run(
     settings=None,
     cleaned_source: Path | None = None,
     made_by: str | None = None,
+    suggestion: dict | None = None,
 ) -> dict:
     """Write a run's files into the empty ``folder``; return its run.json contents (without the id).
 
     Give ``settings`` (a ``CleaningSettings``) and ``cleaned`` for a tracevet
     run, or ``cleaned_source`` (a file cleaned elsewhere, copied byte for
-    byte) for an external one.
+    byte) for an external one. ``suggestion`` (``Suggestion.summary()``) marks
+    a run made with suggested settings: run.json then holds it as ``suggested``.
     """
     folder.mkdir(parents=True, exist_ok=True)
     if cleaned_source is not None:
@@ -157,6 +164,8 @@ def build_run(
         "host": socket.gethostname(),
         "tracevet_version": __version__,
     }
+    if suggestion is not None:
+        meta["suggested"] = jsonable(dict(suggestion))
     if origin == "external":
         meta["note"] = EXTERNAL_NOTE
         meta["cleaned_source_name"] = source_name
@@ -258,6 +267,7 @@ def info_from_meta(meta: dict, settings: dict | None, run_id: str) -> RunInfo:
         cleaned_file=str(meta.get("cleaned", "cleaned.npz")),
         files=dict(meta.get("files") or {}),
         made_by=meta.get("made_by"),
+        suggestion=meta.get("suggested") if isinstance(meta.get("suggested"), dict) else None,
     )
 
 
