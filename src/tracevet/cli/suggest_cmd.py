@@ -123,7 +123,7 @@ def register(subparsers) -> argparse.ArgumentParser:
     return parser
 
 
-def suggest_pass(queue, args: argparse.Namespace) -> int:
+def suggest_pass(queue, args: argparse.Namespace, cluster=None) -> int:
     """``tracevet clean QUEUE --suggest``: a suggested run for every flagged record; 1 if any record failed."""
     from collections import Counter
 
@@ -144,7 +144,7 @@ def suggest_pass(queue, args: argparse.Namespace) -> int:
         if bar and total:
             bar.update(done, total)
 
-    outcomes = suggest_flagged(queue, workers=max(1, int(args.workers)), progress=progress)
+    outcomes = suggest_flagged(queue, workers=max(1, int(args.workers)), progress=progress, cluster=cluster)
     if not outcomes:
         print("no flagged record waiting for review: nothing to suggest")
         return 0
