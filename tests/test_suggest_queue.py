@@ -16,7 +16,7 @@ def _queue(tmp_path, run_cli):
     q = tmp_path / "q"
     assert run_cli("init", q)[0] == 0
     files = []
-    for i, seconds in enumerate((20.0, 16.0)):
+    for i, seconds in enumerate((20.0, 16.0, 12.0)):
         ecg = syn.synthetic_ecg(seconds, 250.0, heart_rate_bpm=75, seed=20 + i)
         x = ecg.signal + syn.muscle_noise(ecg.signal.size, 250.0, 0.06, seed=30 + i)
         path = tmp_path / f"diver{i}.npz"
@@ -31,17 +31,19 @@ def test_clean_suggest_adds_marked_runs_and_the_log_records_them(tmp_path, run_c
 
     monkeypatch.setenv("TRACEVET_REVIEWER", "ann")
     q = _queue(tmp_path, run_cli)
-    flagged, plain = [r.id for r in Queue.open(q).records()]
+    flagged, other, plain = [r.id for r in Queue.open(q).records()]
     queue = Queue.open(q)
     from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides
 
-    queue.add_run(flagged, apply_overrides(DEFAULT_SETTINGS, AGGRESSIVE))  # a bad cleaning: flagged
+    for record_id in (flagged, other):
+        queue.add_run(record_id, apply_overrides(DEFAULT_SETTINGS, AGGRESSIVE))  # a bad cleaning: flagged
     queue.add_run(plain)  # the defaults: no flags
     assert queue.record(flagged).n_flags > 0 and queue.record(plain).n_flags == 0
 
-    code, out, err = run_cli("clean", q, "--suggest", "--quiet")
+    # Two flagged records and --workers 2: the suggestions run on the local process pool.
+    code, out, err = run_cli("clean", q, "--suggest", "--quiet", "--workers", "2")
     assert code == 0, err
-    assert "suggested runs added for 1 of 1 flagged record(s)" in out
+    assert "suggested runs added for 2 of 2 flagged record(s)" in out
     runs = Queue.open(q).runs(flagged)
     assert [r.run_id for r in runs] == ["run-001", "run-002"]  # the original run stays
     assert runs[0].suggestion is None and runs[1].suggestion is not None
