@@ -176,7 +176,8 @@ def explain(best: CandidateResult, ranked: list[CandidateResult], current: Candi
     else:
         n_clean = sum(1 for c in usable if not c.flags)
         screened = sum(1 for c in ranked if c.screened)
-        more = f"; {screened} more removed less noise than one of those and were not assessed" if screened else ""
+        verb = "was" if screened == 1 else "were"
+        more = f"; {screened} more removed less noise than one of those and {verb} not assessed" if screened else ""
         sentences.append(f"It has no flag ({n_clean} of the {len(usable)} candidates assessed have none{more}).")
     if others:
         nxt = min(others, key=rank_key)
