@@ -108,7 +108,7 @@ def clean_one(root: str, record_id: str, settings: dict, sink: Callable[[str, fl
     batch's progress channel.
     """
     from tracevet.assessment import assess
-    from tracevet.cleaning import CleaningSettings, clean
+    from tracevet.cleaning import CleaningSettings, clean_with_report
     from tracevet.workqueue.queue import Queue
 
     if sink is None and _PROGRESS_QUEUE is not None:
@@ -117,9 +117,9 @@ def clean_one(root: str, record_id: str, settings: dict, sink: Callable[[str, fl
         queue = Queue.open(root)
         chosen = CleaningSettings.from_dict(settings, source=f"{record_id}: settings")
         original = queue.load_original(record_id)
-        cleaned = clean(original, chosen, progress=_reporter(record_id, sink))
+        cleaned, report = clean_with_report(original, chosen, progress=_reporter(record_id, sink))
         assessment = assess(original, cleaned, limits=queue.settings.limits())
-        run_id = queue.store_run(record_id, cleaned, assessment, chosen, update_index=False)
+        run_id = queue.store_run(record_id, cleaned, assessment, report.settings, update_index=False, report=report)
         return CleanOutcome(record_id, run_id, assessment.worst_severity, len(assessment.flags))
     except TracevetError as exc:
         return CleanOutcome(record_id, error=exc.one_line())

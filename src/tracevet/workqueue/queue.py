@@ -456,7 +456,7 @@ class Queue:
         another reviewer holds the record, and the run records who asked.
         """
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
         record_id = check_record_id(record_id)
         if reviewer is not None:
@@ -465,16 +465,29 @@ class Queue:
                 claims_mod.check_holder(self.paths, record_id, reviewer, self.settings.claim_idle_minutes)
         settings = self._settings_object(settings, "settings")
         original = self.load_original(record_id)
-        cleaned = clean(original, settings, progress=progress)
+        cleaned, report = clean_with_report(original, settings, progress=progress)
         assessment = assess(original, cleaned, limits=self.settings.limits())
-        return self.store_run(record_id, cleaned, assessment, settings, made_by=reviewer)
+        return self.store_run(record_id, cleaned, assessment, report.settings, made_by=reviewer, report=report)
 
-    def store_run(self, record_id: str, cleaned: Recording, assessment, settings, made_by: str | None = None, update_index: bool = True) -> str:
-        """Write an already computed run into the record (whole or not at all); return its id."""
+    def store_run(
+        self,
+        record_id: str,
+        cleaned: Recording,
+        assessment,
+        settings,
+        made_by: str | None = None,
+        update_index: bool = True,
+        report=None,
+    ) -> str:
+        """Write an already computed run into the record (whole or not at all); return its id.
+
+        ``settings`` are those applied (``report.settings`` of
+        ``tracevet.cleaning.clean_with_report``); ``report`` adds what ``mains: auto`` found.
+        """
         record_id = check_record_id(record_id)
         folder = work_folder(self.paths, "run")
         try:
-            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by)
+            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by, report=report)
             run_id = commit_run(self.paths, record_id, folder, meta)
         except BaseException:
             _remove_tree(folder)
