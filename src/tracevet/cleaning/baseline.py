@@ -28,8 +28,8 @@ SMOOTH_S = 0.3  # moving average applied twice (a triangle of 0.6 s support)
 
 
 def block_length(fs: float) -> int:
-    """Samples per block: ``round(0.02 fs)``, at least 1."""
-    return max(1, int(round(BLOCK_S * fs)))
+    """Samples per block: ``round(0.02 fs)``, at least 1 (at most 2^62 for absurd rates)."""
+    return max(1, int(min(round(BLOCK_S * fs), 2**62)))
 
 
 def _odd_blocks(seconds: float) -> int:
@@ -44,21 +44,38 @@ def reach_samples(fs: float) -> int:
     return blocks * b
 
 
+def _running_median(values: np.ndarray, size: int) -> np.ndarray:
+    """Running median of odd ``size``; within half a window of an end, the first (last) full window's median.
+
+    Near an end no window is padded with made-up values (a record that starts inside a
+    wave would otherwise see that wave repeated or mirrored into a majority): the value
+    there is held at the nearest median of a window lying wholly inside the record.
+    """
+    half = size // 2
+    if values.size <= size:
+        return np.full(values.size, float(np.median(values)), dtype=np.float64)
+    out = ndimage.median_filter(values, size=size, mode="nearest")
+    out[:half] = out[half]
+    out[-half:] = out[-half - 1]
+    return out
+
+
 def estimate(x: np.ndarray, fs: float) -> np.ndarray:
     """Baseline estimate of ``x`` (same length and dtype).
 
     Steps: medians of 20 ms blocks (the last, shorter block too); a 220 ms
     then a 620 ms running median over them (de Chazal et al. 2004 use 200 and
     600 ms; odd block counts); a 300 ms moving average applied twice; linear
-    interpolation from the block centres back to every sample. At the record's
-    ends the running windows repeat the end block ('nearest'), so the estimate
-    stays on the record's own level there.
+    interpolation from the block centres back to every sample. Within half a
+    window of the record's ends the medians are held at the nearest window that
+    lies wholly inside the record (:func:`_running_median`), so a record that
+    starts or ends inside a wave gets no made-up baseline there.
     """
     x = np.asarray(x)
     n = x.shape[0]
     if n == 0:
         return x.copy()
-    b = block_length(fs)
+    b = min(block_length(fs), n)
     full = n // b
     parts = []
     if full:
@@ -66,8 +83,8 @@ def estimate(x: np.ndarray, fs: float) -> np.ndarray:
     if n - full * b:
         parts.append(np.array([np.median(x[full * b :])]))
     med = np.concatenate(parts)
-    med = ndimage.median_filter(med, size=_odd_blocks(FIRST_WINDOW_S), mode="nearest")
-    med = ndimage.median_filter(med, size=_odd_blocks(SECOND_WINDOW_S), mode="nearest")
+    med = _running_median(med, _odd_blocks(FIRST_WINDOW_S))
+    med = _running_median(med, _odd_blocks(SECOND_WINDOW_S))
     k = _odd_blocks(SMOOTH_S)
     med = ndimage.uniform_filter1d(med, k, mode="nearest")
     med = ndimage.uniform_filter1d(med, k, mode="nearest")

@@ -116,6 +116,8 @@ def welch_psd(x: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray] | None:
     """
     x = np.asarray(x)
     n = x.shape[0]
+    if not (math.isfinite(fs) and MIN_WINDOW_S * fs <= n):
+        return None
     nper = 1 << int(math.ceil(math.log2(max(2.0, MIN_WINDOW_S * fs))))
     if n < nper:
         return None
