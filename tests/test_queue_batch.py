@@ -40,7 +40,9 @@ def test_clean_cleans_and_assesses_every_waiting_record(queue_of_four):
     assert {r.state for r in queue.records()} == {"to-review"}
     run = queue.runs(ids[0])[0]
     # The run records the settings applied: mains auto resolved (no 50/60 Hz line in these records).
-    applied = dict(DEFAULT_SETTINGS.to_dict(), mains="off") if DEFAULT_SETTINGS.mains == "auto" else DEFAULT_SETTINGS.to_dict()
+    applied = DEFAULT_SETTINGS.to_dict()
+    if applied["mains"] == "auto":
+        applied["mains"] = "off"
     assert run.origin == "tracevet" and run.settings == applied
     assert run.settings_digest == CleaningSettings.from_dict(applied).digest()
     cleaned, assessment = queue.load_run(ids[0])
@@ -135,7 +137,9 @@ def test_a_record_cleaned_elsewhere_is_reviewed_and_can_be_re_run(tmp_path):
     assert item.origin == "pair" and item.state == "to-review"
     [run] = queue.runs(record_id)
     assert run.origin == "external" and run.settings is None and run.settings_digest is None
-    assert (queue.root / "records" / record_id / "runs" / "run-001" / "cleaned.npz").read_bytes() == elsewhere.read_bytes()
+    assert (
+        queue.root / "records" / record_id / "runs" / "run-001" / "cleaned.npz"
+    ).read_bytes() == elsewhere.read_bytes()
     entry = queue.decide(record_id, "rerun", "try tracevet's engine", "mira")
     assert entry.get("origin") == "external" and entry.get("settings") is None
     [outcome] = clean_waiting(queue, workers=1)
@@ -177,7 +181,9 @@ def test_the_queue_settings_set_cleaning_and_flag_limits(queue_of_four, run_cli)
     queue, ids = queue_of_four
     text = queue.paths.settings.read_text()
     queue.paths.settings.write_text(
-        text.replace("cleaning: {}", "cleaning:\n  transform: dwt").replace("flag_limits: {}", "flag_limits:\n  qrs-widening: {warn: 3, fail: 5}")
+        text.replace("cleaning: {}", "cleaning:\n  transform: dwt").replace(
+            "flag_limits: {}", "flag_limits:\n  qrs-widening: {warn: 3, fail: 5}"
+        )
     )
     queue = Queue.open(queue.root)
     assert queue.settings.limits()["qrs-widening"].fail == 5

@@ -32,7 +32,9 @@ class DecisionActions:
             reason = "this run has a FAIL flag: accepting it needs a note saying why"
         else:
             reason = ""
-        prompt = NoteScreen(decision, self.record_id, info_text.run_label(run.info, self.runs, self.current_run_id), reason)
+        prompt = NoteScreen(
+            decision, self.record_id, info_text.run_label(run.info, self.runs, self.current_run_id), reason
+        )
 
         def save(note: str | None) -> None:
             if note is None:
@@ -83,7 +85,9 @@ class DecisionActions:
                 self.previous_run_id = self.shown_run_id
                 self.panel = "compare" if self.previous_run_id else "flags"
                 self.runs = list(self.app.queue.runs(self.record_id))
-                self.current_run_id = str(getattr(self.app.queue.record(self.record_id), "current_run_id", None) or new_run_id)
+                self.current_run_id = str(
+                    getattr(self.app.queue.record(self.record_id), "current_run_id", None) or new_run_id
+                )
                 self.show_run(str(new_run_id))
 
         source_run = run.run_id if run is not None else ""

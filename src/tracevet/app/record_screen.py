@@ -19,7 +19,13 @@ from tracevet.errors import TracevetError
 DEFAULT_SPAN_S = 10.0
 MIN_SPAN_S = 0.5
 PLOT_NAMES = ("original", "cleaned", "removed")
-PLOT_LABELS = {"original": "orig", "cleaned": "clean", "removed": "removed", "beat": "beats", "beat difference": "o - c"}
+PLOT_LABELS = {
+    "original": "orig",
+    "cleaned": "clean",
+    "removed": "removed",
+    "beat": "beats",
+    "beat difference": "o - c",
+}
 
 
 def _claim_error_holder(exc: Exception) -> str:
@@ -223,7 +229,9 @@ class RecordScreen(DecisionActions, Screen):
             title.append("  ")
             title.append_text(inert_text(info_text.run_label(run.info, self.runs, self.current_run_id), 40))
             title.append("  ")
-            title.append_text(severity_text(queue_view.worst_severity(run.assessment), len(queue_view.flag_list(run.assessment))))
+            title.append_text(
+                severity_text(queue_view.worst_severity(run.assessment), len(queue_view.flag_list(run.assessment)))
+            )
         if rec is not None:
             title.append("  ")
             title.append_text(inert_text(rec.kind, 6))
@@ -232,7 +240,9 @@ class RecordScreen(DecisionActions, Screen):
             title.append("  ")
             title.append_text(inert_text(self.state, 12, style="dim"))
         if self.read_only:
-            title = Text.assemble(("READ-ONLY ", "reverse bold"), ("held by ", "bold"), inert_text(self.holder_text, 120), "  ", title)
+            title = Text.assemble(
+                ("READ-ONLY ", "reverse bold"), ("held by ", "bold"), inert_text(self.holder_text, 120), "  ", title
+            )
             title.no_wrap, title.overflow = True, "ellipsis"
         self.query_one("#record-title", Static).update(title)
 
@@ -383,7 +393,9 @@ class RecordScreen(DecisionActions, Screen):
         centre = self.start_s + self.span_s / 2
         target = regions.next_start(centre, backwards)
         if target is None:
-            self.notify("no further flagged region in this channel" if len(regions) else "no flagged regions in this channel")
+            self.notify(
+                "no further flagged region in this channel" if len(regions) else "no flagged regions in this channel"
+            )
             return
         self.view = "traces"
         self.start_s = target - self.span_s / 2

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from typing import Mapping
+from typing import Any, Mapping
 
 from tracevet.errors import InputError
 from tracevet.recording.model import UNIT_TO_MV
@@ -145,6 +145,7 @@ class Limits:
         """
         spec = self.specs[flag_id]
         if self.absolute:
+            assert self.mv_per_unit is not None  # absolute limits always carry their unit factor
             factor = 1.0 / self.mv_per_unit
             return (
                 None if spec.warn is None else spec.warn * factor,
@@ -175,7 +176,7 @@ def default_limits(kind: str, units: str | None) -> Limits:
     return Limits(
         specs={spec.flag_id: spec for spec in _DEFAULTS},
         absolute=absolute,
-        mv_per_unit=UNIT_TO_MV[units] if absolute else None,
+        mv_per_unit=UNIT_TO_MV.get(units or "") if absolute else None,
         units=units,
     )
 
@@ -224,24 +225,30 @@ def limits_from_mapping(mapping: Mapping | None, source: str = "flag_limits") ->
     for key, value in mapping.items():
         flag_id = str(key)
         if flag_id not in defaults:
-            raise InputError(source, f"unknown flag id {flag_id[:40]!r} in flag_limits (known: {', '.join(sorted(FLAG_IDS))})")
+            raise InputError(
+                source, f"unknown flag id {flag_id[:40]!r} in flag_limits (known: {', '.join(sorted(FLAG_IDS))})"
+            )
         spec = defaults[flag_id]
         if value is False or (isinstance(value, str) and value.strip().lower() == "off"):
             result[flag_id] = replace(spec, enabled=False)
             continue
         if not isinstance(value, Mapping):
             raise InputError(source, f"flag_limits.{flag_id} must be a mapping (warn, fail...) or 'off'")
-        changes = {}
+        changes: dict[str, Any] = {}
         for name, raw in value.items():
             name = str(name)
             if name not in _KEYS:
-                raise InputError(source, f"flag_limits.{flag_id}: unknown key {name[:30]!r} (known: {', '.join(_KEYS)})")
+                raise InputError(
+                    source, f"flag_limits.{flag_id}: unknown key {name[:30]!r} (known: {', '.join(_KEYS)})"
+                )
             if name.endswith("_relative") and not spec.amplitude:
                 raise InputError(source, f"flag_limits.{flag_id}: {name} applies to amplitude flags only")
             changes[name] = _number(raw, f"flag_limits.{flag_id}.{name}", source)
         new = replace(spec, **changes)
         for warn, fail, label in ((new.warn, new.fail, ""), (new.warn_relative, new.fail_relative, "_relative")):
             if warn is not None and fail is not None and warn > fail:
-                raise InputError(source, f"flag_limits.{flag_id}: warn{label} ({warn:g}) is above fail{label} ({fail:g})")
+                raise InputError(
+                    source, f"flag_limits.{flag_id}: warn{label} ({warn:g}) is above fail{label} ({fail:g})"
+                )
         result[flag_id] = new
     return result

@@ -61,12 +61,14 @@ def _apply_filters(buf: np.ndarray, fs: float, stages: list, block_samples: int,
     for stage in stages:
         align = baseline.block_length(fs) if stage.kind == "median" else 1
         blocks = plan_blocks(buf.shape[0], max(block_samples, 4 * stage.overlap), stage.overlap, align)
-        process_inplace(
-            buf,
-            blocks,
-            lambda seg, _b, stage=stage: stage.apply(seg, fs),
-            after_block=lambda i, n=len(blocks): report((i + 1) / n),
-        )
+
+        def run_stage(seg, _block, stage=stage):
+            return stage.apply(seg, fs)
+
+        def block_done(i, n=len(blocks)):
+            report((i + 1) / n)
+
+        process_inplace(buf, blocks, run_stage, after_block=block_done)
 
 
 def _dwt_single_block(buf: np.ndarray, settings: CleaningSettings, level: int) -> None:
@@ -231,7 +233,9 @@ def clean_with_report(
         if progress is not None:
             sub = lambda f, c=c: progress((c + f) / n_channels)  # noqa: E731
         if n_channels == 1:
-            clean_channel(samples[:, 0], recording.fs, applied, recording.source, sub, block_samples, out=result.reshape(n))
+            clean_channel(
+                samples[:, 0], recording.fs, applied, recording.source, sub, block_samples, out=result.reshape(n)
+            )
         else:
             result[:, c] = clean_channel(samples[:, c], recording.fs, applied, recording.source, sub, block_samples)
     if progress is not None:

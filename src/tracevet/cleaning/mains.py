@@ -174,7 +174,8 @@ def detect_mains(samples: np.ndarray, fs: float, harmonics: int = 3, margin_db: 
     nyquist = fs / 2.0
     usable = [f for f in CANDIDATES_HZ if f + NEIGHBOUR_HZ[1] < nyquist]
     if not usable:
-        return MainsDetection(None, None, margin_db=margin_db, note=f"50 and 60 Hz are not below the Nyquist frequency ({nyquist:g} Hz)")
+        note = f"50 and 60 Hz are not below the Nyquist frequency ({nyquist:g} Hz)"
+        return MainsDetection(None, None, margin_db=margin_db, note=note)
     best: dict[float, tuple[float, float, int]] = {}
     spectra = []
     for c in range(data.shape[1]):

@@ -44,7 +44,8 @@ SETTING_HELP: dict[str, str] = {
     "noise_estimate": "noise level from the finest detail level (white noise) or per level (coloured noise)",
     "baseline": "baseline wander removal: median (robust two-stage median estimate, subtracted), "
     "butterworth (zero-phase high-pass at baseline_cutoff_hz) or off",
-    "baseline_cutoff_hz": "butterworth baseline: high-pass cutoff in Hz, -3 dB point of the zero-phase response (0 < f <= 5)",
+    "baseline_cutoff_hz": "butterworth baseline: high-pass cutoff in Hz, -3 dB point of the zero-phase response "
+    "(0 < f <= 5)",
     "mains": "mains notches (zero-phase) at 50 or 60 Hz and harmonics; auto: only if a 50/60 Hz line stands out "
     "of the spectrum by 15 dB (the run records what was found and applied); or off",
     "mains_harmonics": "number of mains multiples notched (1 = the fundamental only; 1..10)",
@@ -176,7 +177,9 @@ def _validate(s: CleaningSettings, source: str) -> None:
     if isinstance(cutoff, bool) or not isinstance(cutoff, (int, float)):
         raise SettingsError(source, f"baseline_cutoff_hz must be a number in Hz, got {cutoff!r}")
     if not (math.isfinite(cutoff) and 0 < cutoff <= _CUTOFF_MAX_HZ):
-        raise SettingsError(source, f"baseline_cutoff_hz must be above 0 and at most {_CUTOFF_MAX_HZ:g} Hz, got {cutoff!r}")
+        raise SettingsError(
+            source, f"baseline_cutoff_hz must be above 0 and at most {_CUTOFF_MAX_HZ:g} Hz, got {cutoff!r}"
+        )
     object.__setattr__(s, "baseline_cutoff_hz", float(cutoff))
     harmonics = s.mains_harmonics
     if isinstance(harmonics, bool) or not isinstance(harmonics, int) or not 1 <= harmonics <= _HARMONICS_MAX:

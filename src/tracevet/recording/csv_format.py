@@ -59,7 +59,8 @@ def _uniform_rate(times: np.ndarray, source: str) -> float:
     if deviation[worst] > 0.25 * period:
         raise InputError(
             source,
-            f"time column is not uniformly spaced (data row {worst + 1} is {deviation[worst]:.6g} s off a uniform grid)",
+            f"time column is not uniformly spaced (data row {worst + 1} is {deviation[worst]:.6g} s off a uniform "
+            "grid)",
         )
     return 1.0 / period
 
@@ -107,9 +108,10 @@ def read_csv(path: Path, fs: float | None = None) -> Recording:
         if not names:
             raise InputError(source, "only a time column, no signal channels")
     else:
-        rate = fs if fs is not None else rate_from_meta
-        if rate is None:
+        given = fs if fs is not None else rate_from_meta
+        if given is None:
             raise InputError(source, "no time column and no sampling rate: pass --fs HZ")
+        rate = given
     start = None
     if meta.get("start_time"):
         try:

@@ -95,12 +95,14 @@ def _reporter(record_id: str, sink: Callable[[str, float], None] | None) -> Call
 
 def _queue_sink(record_id: str, fraction: float) -> None:
     try:
-        _PROGRESS_QUEUE.put_nowait((record_id, fraction))
+        _PROGRESS_QUEUE.put_nowait((record_id, fraction))  # type: ignore[union-attr]
     except Exception:  # progress is a nicety; never fail a record over it
         pass
 
 
-def clean_one(root: str, record_id: str, settings: dict, sink: Callable[[str, float], None] | None = None) -> CleanOutcome:
+def clean_one(
+    root: str, record_id: str, settings: dict, sink: Callable[[str, float], None] | None = None
+) -> CleanOutcome:
     """Clean and assess one record of the queue at ``root`` (runs in a worker process).
 
     ``sink(record_id, fraction)`` receives progress within the record; in a
@@ -145,7 +147,7 @@ def clean_waiting(
     queue,
     workers: int = 2,
     overrides: list[str] | None = None,
-    progress: Callable[[int, int, CleanOutcome | None], None] | None = None,
+    progress: Callable[[float, int, CleanOutcome | None], None] | None = None,
 ) -> list[CleanOutcome]:
     """Clean every waiting record; return one outcome per record.
 

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import json
 import os
+from typing import Any
 
 
 from tracevet.recording.atomic import write_text_atomic
@@ -55,7 +56,7 @@ _DECIDED_STATE = {"accept": ACCEPTED, "reject": REJECTED, "rerun": SENT_BACK}
 def summary_from_files(paths: QueuePaths, record_id: str, last_decision: dict | None = None) -> dict:
     """Build a record's summary from ``record.json`` and its runs' ``run.json``."""
     meta = read_meta(paths, record_id)
-    summary = {"id": record_id}
+    summary: dict[str, Any] = {"id": record_id}
     summary.update({k: meta.get(k) for k in _META_KEYS})
     apply_runs(paths, summary)
     summary["last_decision"] = last_decision
@@ -133,7 +134,11 @@ class Index:
             raw = paths.index.read_bytes()
             snapshot_bytes = len(raw)
             data = json.loads(raw)
-            if not isinstance(data, dict) or data.get("version") != INDEX_VERSION or not isinstance(data.get("records"), dict):
+            if (
+                not isinstance(data, dict)
+                or data.get("version") != INDEX_VERSION
+                or not isinstance(data.get("records"), dict)
+            ):
                 raise ValueError("unexpected structure")
             records = data["records"]
             log_size = int(data.get("log_size", 0))
@@ -361,8 +366,11 @@ def differences(stored: Index, fresh: Index) -> list[str]:
     """Record ids whose stored summary differs from the rebuilt one (or is missing/extra)."""
     ids = set(stored.records) | set(fresh.records)
     return sorted(
-        r for r in ids
-        if r not in stored.records or r not in fresh.records or comparable(stored.records[r]) != comparable(fresh.records[r])
+        r
+        for r in ids
+        if r not in stored.records
+        or r not in fresh.records
+        or comparable(stored.records[r]) != comparable(fresh.records[r])
     )
 
 

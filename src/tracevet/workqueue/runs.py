@@ -126,16 +126,21 @@ def build_run(
     """
     folder.mkdir(parents=True, exist_ok=True)
     if cleaned_source is not None:
+        source_name = cleaned_source.name
         cleaned_name = f"cleaned{cleaned_source.suffix.lower()}"
         copy_verified(cleaned_source, folder / cleaned_name)
-        origin, settings_dict, digest = "external", None, None
+        origin, digest = "external", None
     else:
+        if cleaned is None or settings is None:
+            raise ValueError("a tracevet run needs both the cleaned recording and its settings")
+        done = cleaned
         cleaned_name = "cleaned.npz"
-        write_durable(folder / cleaned_name, lambda handle: write_npz(cleaned, handle))
+        write_durable(folder / cleaned_name, lambda handle: write_npz(done, handle))
         origin = "tracevet"
-        settings_dict = jsonable(settings.to_dict())
         digest = settings.digest()
-        text = "# cleaning settings of this run (usable as a profile: tracevet denoise --profile)\n" + settings.to_yaml()
+        text = (
+            "# cleaning settings of this run (usable as a profile: tracevet denoise --profile)\n" + settings.to_yaml()
+        )
         write_durable(folder / RUN_SETTINGS, text.encode("utf-8"))
     assessment.save(folder)
     flags = flag_dicts(assessment)
@@ -163,7 +168,7 @@ def build_run(
         meta["mains_detection"] = jsonable(dict(report.mains.to_dict(), applied=report.settings.mains))
     if origin == "external":
         meta["note"] = EXTERNAL_NOTE
-        meta["cleaned_source_name"] = cleaned_source.name
+        meta["cleaned_source_name"] = source_name
     return meta
 
 
@@ -248,7 +253,8 @@ def run_info(paths: QueuePaths, record_id: str, run_id: str, with_settings: bool
 
 def info_from_meta(meta: dict, settings: dict | None, run_id: str) -> RunInfo:
     """A :class:`RunInfo` from the contents of ``run.json``."""
-    flags = meta.get("flags") if isinstance(meta.get("flags"), list) else []
+    stored_flags = meta.get("flags")
+    flags = stored_flags if isinstance(stored_flags, list) else []
     return RunInfo(
         run_id=run_id,
         created=str(meta.get("created", "")),
