@@ -102,7 +102,9 @@ def main() -> None:
     parser.add_argument("--quick", action="store_true", help="1 minute and 1 hour only")
     parser.add_argument("--repeat", type=int, default=7, help="runs per timing (best is kept; 2 for 24 h)")
     args = parser.parse_args()
-    dwt_job = apply_overrides(DEFAULT_SETTINGS, ["transform=dwt", "rule=universal", "threshold_mode=soft", "baseline=off"])
+    dwt_job = apply_overrides(
+        DEFAULT_SETTINGS, ["transform=dwt", "rule=universal", "threshold_mode=soft", "baseline=off"]
+    )
     swt_job = apply_overrides(DEFAULT_SETTINGS, ["baseline=off"])
     print(f"default profile: {DEFAULT_SETTINGS.to_dict()}")
     sizes = SIZES[:2] if args.quick else SIZES
@@ -127,7 +129,10 @@ def main() -> None:
             seconds_taken = times[name]
             rates[name] = x.size / seconds_taken
             peak = peak_bytes(func)
-            print(f"  {name:<11} {rates[name] / 1e6:8.2f} M samples/s  {seconds_taken:8.3f} s  peak {peak / 2**20:8.1f} MiB = {peak / x.nbytes:4.2f}x float32 size")
+            print(
+                f"  {name:<11} {rates[name] / 1e6:8.2f} M samples/s  {seconds_taken:8.3f} s  peak "
+                f"{peak / 2**20:8.1f} MiB = {peak / x.nbytes:4.2f}x float32 size"
+            )
         print(f"  ratio engine dwt / bare dwt: {rates['engine dwt'] / rates['bare dwt']:.2f}x (target >= 0.8)")
         print(f"  ratio engine swt / bare swt: {rates['engine swt'] / rates['bare swt']:.2f}x (target >= 1.0)")
         print(f"  ratio default / bare swt:    {rates['default'] / rates['bare swt']:.2f}x")

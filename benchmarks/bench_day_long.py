@@ -109,7 +109,13 @@ def measured(argv: list[str]) -> dict:
     try:
         return json.loads(result["out"].strip().splitlines()[-1])
     except (ValueError, IndexError):
-        return {"wall": result["seconds"], "rc": result["rc"], "maxrss_mb": float("nan"), "out": "", "err": result["err"]}
+        return {
+            "wall": result["seconds"],
+            "rc": result["rc"],
+            "maxrss_mb": float("nan"),
+            "out": "",
+            "err": result["err"],
+        }
 
 
 def cli(*args: str) -> list[str]:
@@ -176,7 +182,9 @@ async def _drive_app(queue_path: str) -> dict:
             t = time.perf_counter()
             await pilot.press(key)
             try:
-                await wait_for(pilot, lambda: screen.last_plots is not before, timeout=5.0 if key.endswith("bracket") else 120.0)
+                await wait_for(
+                    pilot, lambda: screen.last_plots is not before, timeout=5.0 if key.endswith("bracket") else 120.0
+                )
             except AssertionError:
                 continue  # no flagged region to jump to: nothing redrawn
             per_key.append((key, time.perf_counter() - t))

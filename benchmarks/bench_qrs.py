@@ -45,7 +45,9 @@ def _noisy(x, fs, kind, seed):
         return add_noise_at_snr(x, muscle_noise(n, fs, 1.0, seed=seed, bursty=True), snr)
     if kind.startswith("mains"):
         return x + mains_hum(n, fs, float(kind.split()[1]), 0.2)
-    return x + baseline_wander(n, fs, 0.3, seed=seed) + mains_hum(n, fs, 60.0, 0.1) + muscle_noise(n, fs, 0.05, seed=seed)
+    return (
+        x + baseline_wander(n, fs, 0.3, seed=seed) + mains_hum(n, fs, 60.0, 0.1) + muscle_noise(n, fs, 0.05, seed=seed)
+    )
 
 
 def labelled_set(duration_s: float, seeds: int) -> None:

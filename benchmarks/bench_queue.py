@@ -120,7 +120,10 @@ def status_process(root: Path, repeat: int) -> tuple[float, float]:
     for _ in range(repeat):
         started = time.perf_counter()
         proc = subprocess.Popen(
-            [sys.executable, "-m", "tracevet", "status", str(root)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env
+            [sys.executable, "-m", "tracevet", "status", str(root)],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.PIPE,
+            env=env,
         )
         _pid, status, usage = os.wait4(proc.pid, 0)  # this child's own peak RSS, not the pool workers'
         elapsed = time.perf_counter() - started
@@ -232,18 +235,30 @@ def main() -> None:
         print(f"status work in-process: {t_in * 1000:.0f} ms, peak Python allocations {mem_in:.0f} MB")
         print(f"  states: {dict(sorted(states.items()))}")
         t_app, n_open, n_data = open_for_app(root, args.repeat)
-        print(f"open for the app (open + records + next_for_review): {t_app * 1000:.0f} ms, {n_open} files opened, {n_data} data files")
+        print(
+            f"open for the app (open + records + next_for_review): {t_app * 1000:.0f} ms, {n_open} files opened, "
+            f"{n_data} data files"
+        )
         t_bare = bare_scan(root)
-        print(f"bare listing without the index (every record.json + run.json): {t_bare * 1000:.0f} ms; index is {t_bare / t_in:.1f}x faster")
+        print(
+            f"bare listing without the index (every record.json + run.json): {t_bare * 1000:.0f} ms; index is "
+            f"{t_bare / t_in:.1f}x faster"
+        )
         queue = Queue.open(root)
         target = next(r.id for r in queue.records() if r.state == "to-review")
         started = time.perf_counter()
         queue.decide(target, "accept", "bench", "bench")
-        print(f"one decision on this queue (checksums, fsynced append, index): {(time.perf_counter() - started) * 1000:.0f} ms")
+        print(
+            "one decision on this queue (checksums, fsynced append, index): "
+            f"{(time.perf_counter() - started) * 1000:.0f} ms"
+        )
         if args.verify:
             started = time.perf_counter()
             problems = queue.verify()
-            print(f"log --verify (every entry, every file checksummed): {time.perf_counter() - started:.1f} s, {len(problems)} problem(s)")
+            print(
+                f"log --verify (every entry, every file checksummed): {time.perf_counter() - started:.1f} s, "
+                f"{len(problems)} problem(s)"
+            )
     finally:
         if temporary is not None:
             shutil.rmtree(temporary, ignore_errors=True)

@@ -40,7 +40,11 @@ def grid(quick: bool):
                 hr = (55.0, 70.0, 95.0)[(seed + int(fs)) % 3]
                 ect = 6 if (seed + int(fs) // 125) % 3 == 0 else None
                 scale = (0.5, 1.0, 2.0)[(seed + len(noise)) % 3]
-                sources.append(fc.synthetic_source(fs, noise, seed=int(fs) * 10 + seed, heart_rate=hr, ectopic_every=ect, scale=scale))
+                sources.append(
+                    fc.synthetic_source(
+                        fs, noise, seed=int(fs) * 10 + seed, heart_rate=hr, ectopic_every=ect, scale=scale
+                    )
+                )
     for fs in (250.0, 1000.0):
         for seed in seeds:
             sources.append(fc.mcg_source(fs, seed=seed, noise_pt=(0.5, 2.0)[seed % 2]))
@@ -116,7 +120,8 @@ def main() -> int:
             misses.append(f"{'WRONG ' if wrong else ''}{case.name}: [{ids}] r={m['r_amplitude_ratio']} "
                           f"qrs={m['qrs_width_change_ms']} st={m['st_change']} p={m['p_amplitude_ratio']} "
                           f"t={m['t_amplitude_ratio']} ring={m['ringing_rms']} frac={m['removed_beat_fraction']} "
-                          f"shape={m['beat_shape_change_percent']} shift={m['r_timing_shift_ms']} edge={m['edge_deviation']}")
+                          f"shape={m['beat_shape_change_percent']} shift={m['r_timing_shift_ms']} "
+                          f"edge={m['edge_deviation']}")
     elapsed = time.perf_counter() - t0
     print(f"{'category':24s} {'pairs':>5s} {'any flag':>9s} {'fail':>6s}")
     dist = [0, 0, 0]
@@ -129,8 +134,14 @@ def main() -> int:
         target = faith if cat.startswith("faithful") else dist
         for i in range(3):
             target[i] += counts[cat][i]
-    print(f"distorted pairs: {dist[0]}, flagged {100 * dist[1] / max(dist[0], 1):.1f}% (fail {100 * dist[2] / max(dist[0], 1):.1f}%)")
-    print(f"faithful pairs: {faith[0]}, flagged {100 * faith[1] / max(faith[0], 1):.1f}% (fail {100 * faith[2] / max(faith[0], 1):.1f}%)")
+    print(
+        f"distorted pairs: {dist[0]}, flagged {100 * dist[1] / max(dist[0], 1):.1f}% (fail "
+        f"{100 * dist[2] / max(dist[0], 1):.1f}%)"
+    )
+    print(
+        f"faithful pairs: {faith[0]}, flagged {100 * faith[1] / max(faith[0], 1):.1f}% (fail "
+        f"{100 * faith[2] / max(faith[0], 1):.1f}%)"
+    )
     print(f"crashes: {crashes}; {elapsed:.1f} s")
     for line in misses:
         print(line)

@@ -61,7 +61,8 @@ Labelling (measured, not assumed)
     or ringing > 0.03 mV (3 % of R for MCG), or (synthetic) a largest edge
     error against the truth in the first/last 0.5 s (each window linearly
     detrended, so a slow offset does not count) exceeding that of the
-    interior 0.5 s windows (95th percentile) by > 0.15 mV (10 % of R); edge corruption is distorted by construction. ``faithful``:
+    interior 0.5 s windows (95th percentile) by > 0.15 mV (10 % of R); edge
+    corruption is distorted by construction. ``faithful``:
     |R| < 7 %, |ST| < 0.04 mV (3 % of R), |width change| < 5 ms, |shift| < 2 ms,
     P and T within 15 %, ringing < 0.012 mV (1.2 % of R), edge excess
     < 0.05 mV (3 % of R). Anything between is ``ambiguous`` and reported
@@ -316,8 +317,24 @@ def synthetic_ecg_source(fs, noise_kind, seed, units, duration, hr, ectopic, lea
     normal = rec.r_peaks[rec.beat_labels == "N"]
     tag = f"{'3lead-' if leads > 1 else ''}ecg-{fs:g}Hz-{hr:g}bpm-{noise_kind}-{units or 'nounits'}-{duration:g}s" + (
         f"-ect{ectopic}" if ectopic else "") + f"-s{seed}"
-    return _finish(Source(tag, fs, "ecg", units, truth + noise, truth, rec.r_peaks, normal, 1.0 / gain, mains, noise,
-                          "multichannel" if leads > 1 else ("synthetic-ecg" if units == "mV" else f"synthetic-ecg-{units or 'nounits'}")))
+    return _finish(
+        Source(
+            tag,
+            fs,
+            "ecg",
+            units,
+            truth + noise,
+            truth,
+            rec.r_peaks,
+            normal,
+            1.0 / gain,
+            mains,
+            noise,
+            "multichannel"
+            if leads > 1
+            else ("synthetic-ecg" if units == "mV" else f"synthetic-ecg-{units or 'nounits'}"),
+        )
+    )
 
 
 def _hrv(seed: int) -> float:
@@ -331,7 +348,9 @@ def synthetic_mcg_source(fs, seed, units, duration, hr, noise_pt, mains=None, ec
     rec = syn.synthetic_mcg(duration, fs, heart_rate_bpm=hr, amplitude_pt=amp, seed=seed, ectopic_every=ectopic)
     truths = [rec.signal]
     if sensors > 1:
-        other = syn.synthetic_mcg(duration, fs, heart_rate_bpm=hr, amplitude_pt=0.6 * amp, seed=seed, ectopic_every=ectopic)
+        other = syn.synthetic_mcg(
+            duration, fs, heart_rate_bpm=hr, amplitude_pt=0.6 * amp, seed=seed, ectopic_every=ectopic
+        )
         truths.append(-other.signal)
     n = rec.signal.size
     noises = []
@@ -344,7 +363,9 @@ def synthetic_mcg_source(fs, seed, units, duration, hr, noise_pt, mains=None, ec
     truth = np.stack(truths, axis=1) * gain
     noise = np.stack(noises, axis=1) * gain
     normal = rec.r_peaks[rec.beat_labels == "N"]
-    tag = f"{'2ch-' if sensors > 1 else ''}mcg-{fs:g}Hz-{hr:g}bpm-{noise_pt:g}pT{'-mains' + mains if mains else ''}-{units}-{duration:g}s-s{seed}"
+    mains_tag = "-mains" + mains if mains else ""
+    lead_tag = "2ch-" if sensors > 1 else ""
+    tag = f"{lead_tag}mcg-{fs:g}Hz-{hr:g}bpm-{noise_pt:g}pT{mains_tag}-{units}-{duration:g}s-s{seed}"
     return _finish(Source(tag, fs, "mcg", units, truth + noise, truth, rec.r_peaks, normal, None, mains or "off", noise,
                           "multichannel" if sensors > 1 else "synthetic-mcg"))
 
@@ -727,13 +748,26 @@ def faithful_engine_variants(src: Source, rng) -> list[tuple[str, list[str]]]:
 
 AGGRESSIVE = [
     ("haar-L8-universal-hard", ["transform=dwt", "wavelet=haar", "level=8", "rule=universal", "threshold_mode=hard"]),
-    ("db1-L9-perlevel-universal", ["transform=dwt", "wavelet=db1", "level=9", "rule=universal", "noise_estimate=per_level", "threshold_mode=soft"]),
+    (
+        "db1-L9-perlevel-universal",
+        [
+            "transform=dwt",
+            "wavelet=db1",
+            "level=9",
+            "rule=universal",
+            "noise_estimate=per_level",
+            "threshold_mode=soft",
+        ],
+    ),
     ("sym4-L8-universal-hard", ["wavelet=sym4", "level=8", "rule=universal", "threshold_mode=hard"]),
     ("baseline-2Hz", ["baseline_cutoff_hz=2"]),
     ("baseline-3.5Hz", ["baseline_cutoff_hz=3.5"]),
     ("baseline-5Hz", ["baseline_cutoff_hz=5"]),
     ("perlevel-sure-L8", ["level=8", "noise_estimate=per_level", "rule=sure", "threshold_mode=soft"]),
-    ("haar-L7-perlevel-bayes", ["transform=dwt", "wavelet=haar", "level=7", "noise_estimate=per_level", "rule=bayes", "threshold_mode=soft"]),
+    (
+        "haar-L7-perlevel-bayes",
+        ["transform=dwt", "wavelet=haar", "level=7", "noise_estimate=per_level", "rule=bayes", "threshold_mode=soft"],
+    ),
 ]
 
 
@@ -764,10 +798,17 @@ def cases_for(src: Source, rng: np.random.Generator, quick: bool):
     f = float(rng.uniform(0.7, 0.85))
     yield Case("distorted:r-scaled", f"{src.name} | QRS scaled x{f:.2f}", src, scale_qrs(src, base, f, chans))
     sig = float(rng.uniform(4.0, 10.0))
-    yield Case("distorted:qrs-widened", f"{src.name} | QRS gaussian sigma {sig:.1f} ms", src, widen_qrs(src, base, sig, chans))
+    yield Case(
+        "distorted:qrs-widened", f"{src.name} | QRS gaussian sigma {sig:.1f} ms", src, widen_qrs(src, base, sig, chans)
+    )
     st = float(rng.uniform(0.12, 0.3)) if ecg else float(rng.uniform(0.10, 0.20))
     st *= rng.choice([-1.0, 1.0])
-    yield Case("distorted:st-shift", f"{src.name} | ST shift {st:+.3f} {'mV' if ecg else 'of R'}", src, shift_st(src, base, st, chans))
+    yield Case(
+        "distorted:st-shift",
+        f"{src.name} | ST shift {st:+.3f} {'mV' if ecg else 'of R'}",
+        src,
+        shift_st(src, base, st, chans),
+    )
     wave = "t" if rng.random() < 0.6 or src.anat[0]["p"] is None else "p"
     yield Case(f"distorted:{wave}-attenuated", f"{src.name} | {wave.upper()} wave kept 40 %", src,
                attenuate_wave(src, base, wave, 0.4, chans))
@@ -783,13 +824,24 @@ def cases_for(src: Source, rng: np.random.Generator, quick: bool):
     k = max(1, int(round(ms * src.fs / 1000.0))) * int(rng.choice([-1, 1]))
     yield Case("distorted:time-shift", f"{src.name} | shift {1000 * k / src.fs:+.1f} ms", src, time_shift(base, k))
     freq, amp, tau = float(rng.uniform(20, 40)), float(rng.uniform(0.06, 0.15)), float(rng.uniform(0.03, 0.06))
-    yield Case("distorted:ringing", f"{src.name} | ringing {freq:.0f} Hz amp {amp:.2f}{' mV' if ecg else ' of R'} tau {1000 * tau:.0f} ms",
-               src, add_ringing(src, base, min(freq, 0.4 * src.fs), amp, tau, chans))
+    yield Case(
+        "distorted:ringing",
+        f"{src.name} | ringing {freq:.0f} Hz amp {amp:.2f}{' mV' if ecg else ' of R'} tau {1000 * tau:.0f} ms",
+        src,
+        add_ringing(src, base, min(freq, 0.4 * src.fs), amp, tau, chans),
+    )
     if not quick or rng.random() < 0.5:
-        yield Case("distorted:clipped", f"{src.name} | clipped at 80 % of the typical R", src, clip_top(src, base, 0.8, chans))
+        yield Case(
+            "distorted:clipped", f"{src.name} | clipped at 80 % of the typical R", src, clip_top(src, base, 0.8, chans)
+        )
         how = str(rng.choice(["step", "hold", "burst"]))
-        yield Case("distorted:edge-artefact", f"{src.name} | edges {how}", src, corrupt_edges(src, base, how, rng, chans),
-                   forced="distorted")
+        yield Case(
+            "distorted:edge-artefact",
+            f"{src.name} | edges {how}",
+            src,
+            corrupt_edges(src, base, how, rng, chans),
+            forced="distorted",
+        )
 
 
 def _try(fn):
@@ -830,14 +882,17 @@ def sources(quick: bool):
     windows = [(0.0, 30.0), (40.0, 45.0), (95.0, 20.0), (130.0, 60.0), (200.0, 40.0), (250.0, 50.0)]
     for start, dur in (windows if not quick else windows[:2]):
         yield real_source(start, dur)
-    for start, dur, fs in ([(40.0, 45.0, 250.0), (130.0, 60.0, 500.0), (200.0, 40.0, 1000.0)] if not quick else [(40.0, 45.0, 500.0)]):
+    for start, dur, fs in (
+        [(40.0, 45.0, 250.0), (130.0, 60.0, 500.0), (200.0, 40.0, 1000.0)] if not quick else [(40.0, 45.0, 500.0)]
+    ):
         yield real_source(start, dur, fs)
 
 
 # --------------------------------------------------------------------------- running
 
 
-KEY_METRICS = ("heart_rate_bpm", "qrs_width_ms", "r_amplitude_ratio", "st_change", "qrs_width_change_ms", "r_timing_shift_ms", "p_amplitude_ratio",
+KEY_METRICS = ("heart_rate_bpm", "qrs_width_ms", "r_amplitude_ratio", "st_change", "qrs_width_change_ms",
+               "r_timing_shift_ms", "p_amplitude_ratio",
                "t_amplitude_ratio", "ringing_rms", "removed_beat_fraction", "beat_shape_change_percent",
                "edge_deviation", "clipped_runs", "template_noise", "r_amplitude", "beat_count", "dominant_beat_count")
 
@@ -879,7 +934,7 @@ def describe_failure(row: dict) -> str:
     lines.append(f"      truth: {truth}")
     if row["flags"]:
         lines.append("      flags: " + ", ".join(
-            f"{i}/{s} {_fmt_num(v)} vs {_fmt_num(l)} ({c})" for i, s, v, l, c in row["flags"]))
+            f"{i}/{s} {_fmt_num(v)} vs {_fmt_num(lim)} ({c})" for i, s, v, lim, c in row["flags"]))
     else:
         lines.append("      flags: none")
     lines.append("      metrics: " + " ".join(f"{k}={_fmt_num(v)}" for k, v in row["metrics"].items()))
@@ -908,19 +963,24 @@ def cli_contract(quick: bool) -> list[str]:
             try:
                 doc = json.loads(proc.stdout)
             except json.JSONDecodeError:
-                problems.append(f"{label}: stdout is not exactly one JSON object (exit {proc.returncode}): {proc.stdout[:200]!r}")
+                problems.append(
+                    f"{label}: stdout is not exactly one JSON object (exit {proc.returncode}): {proc.stdout[:200]!r}"
+                )
                 continue
             if not isinstance(doc, dict) or set(doc) != {"metrics", "flags"}:
                 problems.append(f"{label}: keys {sorted(doc) if isinstance(doc, dict) else type(doc)}")
                 continue
-            bad_flag = [f for f in doc["flags"] if set(f) != {"id", "severity", "message", "value", "limit", "source"}
+            bad_flag = [f for f in doc["flags"] if set(f) != {"id", "severity", "message", "value", "limit", "source", "where", "where_more",
+                                                     "beats_affected", "beats_measured"}
                         or f["severity"] not in ("warn", "fail")]
             if bad_flag:
                 problems.append(f"{label}: malformed flag {bad_flag[0]}")
             want = 1 if any(f["severity"] == "fail" for f in doc["flags"]) else 0
             if proc.returncode != want:
                 problems.append(f"{label}: exit {proc.returncode}, expected {want} from the flags")
-            print(f"  CLI {label}: exit {proc.returncode}, flags {[f['id'] + '/' + f['severity'] for f in doc['flags']]}")
+            print(
+                f"  CLI {label}: exit {proc.returncode}, flags {[f['id'] + '/' + f['severity'] for f in doc['flags']]}"
+            )
         # Bad input: different lengths -> exit 2, one line on stderr, nothing on stdout.
         a, b = Path(tmp) / "orig.npz", Path(tmp) / "short.npz"
         write_recording(src.recording(src.original, str(a)), a)
@@ -981,7 +1041,8 @@ def main() -> int:
         for name in sorted(stats):
             st = stats[name]
             print(f"{name:38s} {st['n']:5d} {st['distorted']:5d} {pct(st['det'], st['distorted']):>9s} "
-                  f"{pct(st['det_fail'], st['distorted']):>7s} {st['faithful']:5d} {pct(st['ff'], st['faithful']):>10s} "
+                  f"{pct(st['det_fail'], st['distorted']):>7s} {st['faithful']:5d} "
+                  f"{pct(st['ff'], st['faithful']):>10s} "
                   f"{pct(st['ff_fail'], st['faithful']):>7s} {st['ambiguous']:5d} {st['amb_flagged']:9d} "
                   f"{st['crash']:5d} {st['skipped']:4d}")
         return stats
@@ -999,7 +1060,10 @@ def main() -> int:
     print(f"\nOVERALL distorted flagged: {det}/{len(dist)} = {100.0 * det / max(1, len(dist)):.1f} % (target >= 97 %)")
     print(f"OVERALL faithful flagged:  {ff}/{len(faith)} = {100.0 * ff / max(1, len(faith)):.1f} % (target <= 5 %)")
     print(f"ambiguous (not in rates):  {len(amb)}, of which flagged {sum(r['flagged'] for r in amb)}")
-    print(f"crashes: {len(crashes)}; skipped (settings refused by the engine): {sum(r['status'] == 'skipped' for r in rows)}")
+    print(
+        f"crashes: {len(crashes)}; skipped (settings refused by the engine): "
+        f"{sum(r['status'] == 'skipped' for r in rows)}"
+    )
     for row in crashes:
         print(f"  CRASH {row['name']}: {row['why']}")
     counts = defaultdict(int)
@@ -1007,7 +1071,10 @@ def main() -> int:
         for f in r["flags"]:
             counts[f[0]] += 1
     if counts:
-        print("flag ids raised on faithful pairs: " + ", ".join(f"{k} x{v}" for k, v in sorted(counts.items(), key=lambda kv: -kv[1])))
+        print(
+            "flag ids raised on faithful pairs: "
+            + ", ".join(f"{k} x{v}" for k, v in sorted(counts.items(), key=lambda kv: -kv[1]))
+        )
     print("\nMISSED distorted pairs:")
     for row in dist:
         if not row["flagged"]:
@@ -1021,7 +1088,9 @@ def main() -> int:
         for row in amb:
             print(describe_failure(row))
     if args.json_out:
-        Path(args.json_out).write_text(json.dumps(rows, default=lambda o: o.tolist() if hasattr(o, "tolist") else str(o), indent=1))
+        Path(args.json_out).write_text(
+            json.dumps(rows, default=lambda o: o.tolist() if hasattr(o, "tolist") else str(o), indent=1)
+        )
     if not args.no_cli:
         print("\nCLI contract (tracevet assess --json in a subprocess):")
         problems = cli_contract(args.quick)

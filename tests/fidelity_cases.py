@@ -67,14 +67,18 @@ def _noise(kind: str, n: int, fs: float, scale: float, seed: int) -> tuple[np.nd
         high = min(150.0, 0.45 * fs)
         return syn.muscle_noise(n, fs, 0.05 * scale, seed=seed, high_hz=high), "off"
     if kind == "wander":
-        return syn.baseline_wander(n, fs, 0.3 * scale, seed=seed) + syn.white_noise(n, 0.015 * scale, seed=seed + 1), "off"
+        return syn.baseline_wander(n, fs, 0.3 * scale, seed=seed) + syn.white_noise(
+            n, 0.015 * scale, seed=seed + 1
+        ), "off"
     if kind == "mains":
         freq = 50.0 if seed % 2 == 0 else 60.0
         harmonics = max(1, min(3, int((0.5 * fs - 1) // freq)))
         hum = syn.mains_hum(n, fs, freq, 0.08 * scale, harmonics=harmonics)
         return hum + syn.white_noise(n, 0.015 * scale, seed=seed), str(int(freq))
     if kind == "motion":
-        return syn.electrode_motion(n, fs, 0.3 * scale, seed=seed) + syn.white_noise(n, 0.02 * scale, seed=seed + 1), "off"
+        return syn.electrode_motion(n, fs, 0.3 * scale, seed=seed) + syn.white_noise(
+            n, 0.02 * scale, seed=seed + 1
+        ), "off"
     raise ValueError(kind)
 
 
@@ -302,8 +306,10 @@ AGGRESSIVE = {
     # Baseline removal far above the 0.67 Hz bound of AHA/ACCF/HRS 2007 (from memory).
     "heavy-baseline": lambda n: CleaningSettings(baseline_cutoff_hz=3.0),
     # Haar, universal soft threshold with per-level noise estimates, deepest level.
-    "deep-soft": lambda n: CleaningSettings(transform="dwt", wavelet="haar", level=_deepest(n, "haar"), rule="universal",
-                                            threshold_mode="soft", noise_estimate="per_level"),
+    "deep-soft": lambda n: CleaningSettings(
+        transform="dwt", wavelet="haar", level=_deepest(n, "haar"), rule="universal", threshold_mode="soft",
+        noise_estimate="per_level",
+    ),
 }
 
 

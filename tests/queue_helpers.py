@@ -15,8 +15,12 @@ def write_small_recording(path, seconds: float = 2.0, fs: float = 250.0, seed: i
     """Write a short noisy sine recording (test input only) and return its path."""
     rng = np.random.default_rng(seed)
     t = np.arange(int(seconds * fs)) / fs
-    signal = np.stack([np.sin(2 * np.pi * 1.2 * t + k) + 0.05 * rng.standard_normal(t.size) for k in range(channels)], axis=1)
-    write_recording(Recording(signal.astype(np.float32), fs, tuple(f"ch{k + 1}" for k in range(channels)), "mV", "ecg"), path)
+    signal = np.stack(
+        [np.sin(2 * np.pi * 1.2 * t + k) + 0.05 * rng.standard_normal(t.size) for k in range(channels)], axis=1
+    )
+    write_recording(
+        Recording(signal.astype(np.float32), fs, tuple(f"ch{k + 1}" for k in range(channels)), "mV", "ecg"), path
+    )
     return path
 
 
@@ -31,7 +35,10 @@ class StandInAssessment:
     def __init__(self, flags=()):
         from types import SimpleNamespace
 
-        self.flags = [SimpleNamespace(id=i, severity=s, message=f"{i} ({s})", value=1.0, limit=0.5, source="test", channel="ch1") for i, s in flags]
+        self.flags = [
+            SimpleNamespace(id=i, severity=s, message=f"{i} ({s})", value=1.0, limit=0.5, source="test", channel="ch1")
+            for i, s in flags
+        ]
 
     @property
     def worst_severity(self):

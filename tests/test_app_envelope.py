@@ -79,7 +79,7 @@ def test_r_peaks_survive_a_whole_day_view():
     # A spike train (one narrow peak per 0.8 s at 250 Hz) in noise, 2 hours long, shown on 160 bins:
     # every bin holding a spike draws it at full height.
     rng = np.random.default_rng(1)
-    fs, n = 250, 250 * 7200
+    n = 250 * 7200  # 2 hours at 250 Hz
     x = (0.05 * rng.standard_normal(n)).astype(np.float32)
     peaks = np.arange(100, n, 200)
     x[peaks] = 1.0 + 0.1 * rng.random(peaks.size).astype(np.float32)

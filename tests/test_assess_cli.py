@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pytest
@@ -11,13 +12,19 @@ import fidelity_cases as fc
 from tracevet import synthetic as syn
 from tracevet.recording import Recording, write_recording
 
+# The JSON contract of one flag (docs/assessment.md): the six original keys and the stretches.
+FLAG_KEYS = {"id", "severity", "message", "value", "limit", "source", "where", "where_more", "beats_affected",
+             "beats_measured"}
+
 
 @pytest.fixture(scope="module")
 def files(tmp_path_factory):
     folder = tmp_path_factory.mktemp("assess")
     rec = syn.synthetic_ecg(20.0, 360.0, heart_rate_bpm=72.0, seed=21)
     noisy = rec.signal + syn.white_noise(rec.signal.size, 0.03, seed=22)
-    src = fc.Source("t", rec.signal, noisy, 360.0, rec.r_peaks, rec.fiducials["P"], rec.fiducials["T"], "ecg", "mV", 1.0)
+    src = fc.Source(
+        "t", rec.signal, noisy, 360.0, rec.r_peaks, rec.fiducials["P"], rec.fiducials["T"], "ecg", "mV", 1.0
+    )
 
     def save(name, values, **meta):
         path = folder / name
@@ -45,6 +52,8 @@ def test_flattened_r_peaks_fail_with_exit_1(run_cli, files):
     code, out, err = run_cli("assess", files["original"], files["flattened"])
     assert code == 1, err
     assert "FAIL r-peak-change" in out and "source:" in out
+    # The report says where each flag applies: stretches in seconds and beats affected of beats measured.
+    assert re.search(r"where: \d+\.\d-\d+\.\d s.*, \d+ of \d+ beats", out)
 
 
 def test_json_is_exactly_one_object_with_the_contract(run_cli_process, files):
@@ -52,7 +61,7 @@ def test_json_is_exactly_one_object_with_the_contract(run_cli_process, files):
     assert code == 1, err
     doc = json.loads(out)  # one object, nothing else on stdout
     assert set(doc) == {"metrics", "flags"}
-    assert all(set(f) == {"id", "severity", "message", "value", "limit", "source"} for f in doc["flags"])
+    assert all(set(f) == FLAG_KEYS for f in doc["flags"])
     assert any(f["id"] == "r-peak-change" and f["severity"] == "fail" for f in doc["flags"])
     assert 0.65 < doc["metrics"]["r_amplitude_ratio"] < 0.75
 
@@ -60,7 +69,9 @@ def test_json_is_exactly_one_object_with_the_contract(run_cli_process, files):
 def test_limits_file_and_save_folder(run_cli, files, tmp_path):
     limits = tmp_path / "limits.yaml"
     limits.write_text("flag_limits:\n  r-peak-change: off\n  removed-beat-structure: off\n  beat-shape-change: off\n")
-    code, out, err = run_cli("assess", files["original"], files["flattened"], "--limits", limits, "--save", tmp_path, "--json")
+    code, out, err = run_cli(
+        "assess", files["original"], files["flattened"], "--limits", limits, "--save", tmp_path, "--json"
+    )
     doc = json.loads(out)
     assert not [f for f in doc["flags"] if f["id"] in ("r-peak-change", "removed-beat-structure", "beat-shape-change")]
     assert (tmp_path / "assessment.json").exists() and (tmp_path / "beats.npz").exists()

@@ -89,7 +89,13 @@ BAD_INPUTS = [
     ("unknown setting", "s.csv", GOOD_CSV, ["--set", "speed=9"], "unknown setting 'speed'"),
     ("override without value", "o.csv", GOOD_CSV, ["--set", "rule"], "KEY=VALUE"),
     ("unreadable EDF", "broken.edf", b"0       garbage that is not an EDF header", [], "broken.edf"),
-    ("baseline cutoff above Nyquist", "b.npy", np.zeros(4000), ["--fs", "8", "--set", "baseline_cutoff_hz=5"], "half the sampling rate"),
+    (
+        "baseline cutoff above Nyquist",
+        "b.npy",
+        np.zeros(4000),
+        ["--fs", "8", "--set", "baseline_cutoff_hz=5"],
+        "half the sampling rate",
+    ),
 ]
 
 

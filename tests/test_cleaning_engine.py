@@ -24,7 +24,14 @@ def _noisy(n_repeat=1, dtype=np.float64, channels=1, seed=3):
     rng = np.random.default_rng(seed)
     x = np.tile(_excerpt_mv(), n_repeat)
     cols = [x + rng.normal(scale=0.05, size=x.size) for _ in range(channels)]
-    return Recording(np.stack(cols, axis=1).astype(dtype), 360.0, tuple(f"c{i}" for i in range(channels)), units="mV", kind="ecg", source="mem.npz")
+    return Recording(
+        np.stack(cols, axis=1).astype(dtype),
+        360.0,
+        tuple(f"c{i}" for i in range(channels)),
+        units="mV",
+        kind="ecg",
+        source="mem.npz",
+    )
 
 
 def test_clean_keeps_shape_dtype_and_metadata():
@@ -32,7 +39,13 @@ def test_clean_keeps_shape_dtype_and_metadata():
         rec = _noisy(dtype=dtype, channels=2)
         out = clean(rec, DEFAULT_SETTINGS)
         assert out.samples.shape == rec.samples.shape and out.samples.dtype == dtype
-        assert (out.fs, out.channels, out.units, out.kind, out.source) == (rec.fs, rec.channels, rec.units, rec.kind, rec.source)
+        assert (out.fs, out.channels, out.units, out.kind, out.source) == (
+            rec.fs,
+            rec.channels,
+            rec.units,
+            rec.kind,
+            rec.source,
+        )
         assert np.isfinite(out.samples).all()
         assert not np.shares_memory(out.samples, rec.samples)
 
@@ -65,7 +78,9 @@ def test_input_is_not_modified():
 
 def test_progress_is_monotone_and_reaches_one():
     seen = []
-    clean(_noisy(channels=2), apply_overrides(DEFAULT_SETTINGS, ["mains=60"]), progress=seen.append, block_samples=16384)
+    clean(
+        _noisy(channels=2), apply_overrides(DEFAULT_SETTINGS, ["mains=60"]), progress=seen.append, block_samples=16384
+    )
     assert seen[-1] == 1.0 and len(seen) > 5
     assert all(b >= a for a, b in zip(seen, seen[1:]))
     assert all(0.0 <= f <= 1.0 for f in seen)

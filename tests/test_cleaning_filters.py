@@ -19,7 +19,6 @@ def _impulse_response(fs: float, cutoff: float) -> tuple[np.ndarray, int, int]:
     start = int(60 * fs)
     stop = start + int(0.1 * fs)
     x[start:stop] = 3.0
-    rec = Recording(x, fs, ("I",), units="mV", kind="ecg")
     settings = apply_overrides(DEFAULT_SETTINGS, [f"baseline_cutoff_hz={cutoff}"])
     # Filter stage alone (the shrinkage would treat the pulse edges as signal anyway).
     y = zero_phase(x, baseline_sos(fs, settings.baseline_cutoff_hz), fs, settings.baseline_cutoff_hz)

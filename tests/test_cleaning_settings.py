@@ -85,7 +85,9 @@ def test_digest_is_sha256_of_sorted_canonical_json_and_stable_across_processes()
     assert other.digest() != DEFAULT_SETTINGS.digest()
     code = "from tracevet.cleaning import DEFAULT_SETTINGS as s; print(s.digest())"
     src = str(Path(__file__).resolve().parents[1] / "src")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env={"PYTHONPATH": src, "PYTHONHASHSEED": "123"})
+    out = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env={"PYTHONPATH": src, "PYTHONHASHSEED": "123"}
+    )
     assert out.stdout.strip() == DEFAULT_SETTINGS.digest()
 
 
@@ -94,13 +96,25 @@ def test_overrides_convert_types():
         DEFAULT_SETTINGS,
         ["level=5", "baseline_cutoff_hz=0.5", "mains=50", "mains_harmonics=2", "transform=dwt", "rule = sure"],
     )
-    assert (s.level, s.baseline_cutoff_hz, s.mains, s.mains_harmonics, s.transform, s.rule) == (5, 0.5, "50", 2, "dwt", "sure")
+    assert (s.level, s.baseline_cutoff_hz, s.mains, s.mains_harmonics, s.transform, s.rule) == (
+        5,
+        0.5,
+        "50",
+        2,
+        "dwt",
+        "sure",
+    )
     assert apply_overrides(s, ["level=auto"]).level == "auto"
 
 
 @pytest.mark.parametrize(
     "override, fragment",
-    [("rule", "expected KEY=VALUE"), ("speed=9", "unknown setting 'speed'"), ("level=deep", "level must be"), ("baseline_cutoff_hz=low", "number")],
+    [
+        ("rule", "expected KEY=VALUE"),
+        ("speed=9", "unknown setting 'speed'"),
+        ("level=deep", "level must be"),
+        ("baseline_cutoff_hz=low", "number"),
+    ],
 )
 def test_bad_overrides(override, fragment):
     with pytest.raises(SettingsError, match=fragment) as info:

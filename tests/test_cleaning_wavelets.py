@@ -96,7 +96,9 @@ def test_threshold_modes_match_pywavelets_docstring_example(mode, expected):
     np.testing.assert_allclose(threshold_inplace(data.copy(), 2.0, mode), expected, atol=1e-7)
     np.testing.assert_allclose(threshold_inplace(data.copy(), 2.0, mode), pywt.threshold(data, 2.0, mode), atol=1e-12)
     negative = -data
-    np.testing.assert_allclose(threshold_inplace(negative.copy(), 2.0, mode), pywt.threshold(negative, 2.0, mode), atol=1e-12)
+    np.testing.assert_allclose(
+        threshold_inplace(negative.copy(), 2.0, mode), pywt.threshold(negative, 2.0, mode), atol=1e-12
+    )
 
 
 def test_threshold_float32_in_place_matches_pywavelets():

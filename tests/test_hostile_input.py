@@ -87,7 +87,9 @@ def work(tmp_path):
     np.save(d / "good.npy", sig.astype(np.float32))
     write_recording(Recording(sig[:1000].astype(np.float32), FS, ("ECG",), "mV", "ecg"), d / "short.npz")
     write_recording(Recording(sig.astype(np.float32), 500.0, ("ECG",), "mV", "ecg"), d / "rate500.npz")
-    write_recording(Recording(np.column_stack([sig, sig]).astype(np.float32), FS, ("a", "b"), "mV", "ecg"), d / "two.npz")
+    write_recording(
+        Recording(np.column_stack([sig, sig]).astype(np.float32), FS, ("a", "b"), "mV", "ecg"), d / "two.npz"
+    )
     write_recording(Recording((sig * 1000).astype(np.float32), FS, ("ECG",), "uV", "ecg"), d / "microvolt.npz")
     write_recording(Recording(sig.astype(np.float32), FS, ("MCG",), "pT", "mcg"), d / "mcg.npz")
     (d / "empty.csv").write_text("")
@@ -230,9 +232,20 @@ def test_denoise_level_too_deep_for_signal(run_cli, work):
     refused(run_cli, work.parent, "denoise", work / "short.npz", work / "out.npz", "--set", "level=12", mention="level")
 
 
-@pytest.mark.parametrize("profile", ["unsafe.yaml", "dup.yaml", "notmap.yaml", "badkey.yaml", "broken.yaml", "missing.yaml", "folder.npz"])
+@pytest.mark.parametrize(
+    "profile", ["unsafe.yaml", "dup.yaml", "notmap.yaml", "badkey.yaml", "broken.yaml", "missing.yaml", "folder.npz"]
+)
 def test_denoise_refuses_bad_profile(run_cli, work, profile):
-    refused(run_cli, work.parent, "denoise", work / "good.npz", work / "out.npz", "--profile", work / profile, mention=profile)
+    refused(
+        run_cli,
+        work.parent,
+        "denoise",
+        work / "good.npz",
+        work / "out.npz",
+        "--profile",
+        work / profile,
+        mention=profile,
+    )
     assert not (work / "pwned.txt").exists() and not Path("pwned.txt").exists()
 
 
@@ -316,11 +329,47 @@ def test_assess_refuses_mismatched_pairs(run_cli, work):
     refused(run_cli, work.parent, "assess", work / "good.npz", work / "two.npz")
     refused(run_cli, work.parent, "assess", work / "good.npz", work / "nan.npy", "--fs", "250", mention="nan.npy")
     refused(run_cli, work.parent, "assess", work / "truncated.edf", work / "good.npz", mention="truncated.edf")
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--limits", work / "unsafe.yaml", mention="unsafe.yaml")
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--limits", work / "notmap.yaml", mention="notmap.yaml")
+    refused(
+        run_cli,
+        work.parent,
+        "assess",
+        work / "good.npz",
+        work / "good.npz",
+        "--limits",
+        work / "unsafe.yaml",
+        mention="unsafe.yaml",
+    )
+    refused(
+        run_cli,
+        work.parent,
+        "assess",
+        work / "good.npz",
+        work / "good.npz",
+        "--limits",
+        work / "notmap.yaml",
+        mention="notmap.yaml",
+    )
     refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--fs", "nan", mention="fs")
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--save", work / "nowhere" / "deeper", mention="nowhere")
-    err = refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--save", work / "good.npy", mention="good.npy")
+    refused(
+        run_cli,
+        work.parent,
+        "assess",
+        work / "good.npz",
+        work / "good.npz",
+        "--save",
+        work / "nowhere" / "deeper",
+        mention="nowhere",
+    )
+    err = refused(
+        run_cli,
+        work.parent,
+        "assess",
+        work / "good.npz",
+        work / "good.npz",
+        "--save",
+        work / "good.npy",
+        mention="good.npy",
+    )
     assert "not a folder" in err
 
 
@@ -429,7 +478,9 @@ def test_add_refuses_bad_files_and_writes_nothing(run_cli, queue, work):
     refused(run_cli, queue.parent, "add", queue, queue, mention="q")  # the queue into itself
 
 
-@pytest.mark.parametrize("other", ["short.npz", "rate500.npz", "two.npz", "nan.csv", "truncated.edf", "microvolt.npz", "mcg.npz"])
+@pytest.mark.parametrize(
+    "other", ["short.npz", "rate500.npz", "two.npz", "nan.csv", "truncated.edf", "microvolt.npz", "mcg.npz"]
+)
 def test_add_pair_refuses_mismatch(run_cli, queue, work, other):
     """The pairs 'tracevet assess' refuses (length, rate, channels, units) are refused by add --pair too."""
     refused(run_cli, queue.parent, "add", queue, "--pair", work / "good.npz", work / other, mention=other)
@@ -520,7 +571,17 @@ def test_decide_refuses_bad_runs_and_settings(run_cli, queue, work):
     refused(run_cli, queue.parent, "decide", queue, record, "accept", "--run", "run-999")
     refused(run_cli, queue.parent, "decide", queue, record, "rerun", "--set", "rule=magic", mention="rule")
     refused(run_cli, queue.parent, "decide", queue, record, "rerun", "--set", "rule", mention="rule")
-    refused(run_cli, queue.parent, "decide", queue, record, "rerun", "--profile", work / "unsafe.yaml", mention="unsafe.yaml")
+    refused(
+        run_cli,
+        queue.parent,
+        "decide",
+        queue,
+        record,
+        "rerun",
+        "--profile",
+        work / "unsafe.yaml",
+        mention="unsafe.yaml",
+    )
     refused(run_cli, queue.parent, "decide", queue, record, "reject")  # no note
     refused(run_cli, queue.parent, "decide", queue, record, "maybe")
 
@@ -546,7 +607,13 @@ def test_notes_stored_as_given_and_shown_inert(run_cli, queue, work, tmp_path):
     log_text = (queue / "decisions.jsonl").read_text(encoding="utf-8")
     entries = [json.loads(line) for line in log_text.splitlines() if line.strip()]
     assert any(e.get("note") == note for e in entries), "note not stored as given"
-    for args in (("log", queue), ("log", queue, "--record", record), ("status", queue), ("status", queue, "--list"), ("log", queue, "--verify")):
+    for args in (
+        ("log", queue),
+        ("log", queue, "--record", record),
+        ("status", queue),
+        ("status", queue, "--list"),
+        ("log", queue, "--verify"),
+    ):
         rc, out, err = run_cli(*args)
         assert rc == 0, (args, err)
         assert_clean_output(out, err)
@@ -588,7 +655,9 @@ def test_every_command_has_help(run_cli):
     rc, out, err = run_cli("--help")
     assert rc == 0
     commands = re.findall(r"^    (\w+)\s{2,}", out, re.M)
-    assert {"denoise", "assess", "init", "add", "clean", "status", "decide", "log", "export", "review", "demo"} <= set(commands)
+    assert {"denoise", "assess", "init", "add", "clean", "status", "decide", "log", "export", "review", "demo"} <= set(
+        commands
+    )
     for command in commands:
         rc, out_c, err_c = run_cli(command, "--help")
         assert rc == 0 and "usage:" in out_c and err_c == "", command
@@ -648,7 +717,9 @@ def test_export_refuses_a_tampered_log(run_cli, queue, work, tmp_path):
     assert "changed" in err and not (tmp_path / "out").exists()
 
 
-@pytest.mark.parametrize("name,content", [("garbage.npz", b"garbage"), ("garbage.npy", b"garbage"), ("empty.npz", b""), ("empty.npy", b"")])
+@pytest.mark.parametrize(
+    "name,content", [("garbage.npz", b"garbage"), ("garbage.npy", b"garbage"), ("empty.npz", b""), ("empty.npy", b"")]
+)
 def test_numpy_files_that_are_not_numpy_say_so(run_cli, work, name, content):
     """Not numpy's guess that the bytes are a pickle, but what is wrong."""
     (work / name).write_bytes(content)
@@ -670,7 +741,10 @@ def test_numpy_header_declaring_a_huge_array(run_cli, work):
 
 
 def test_edf_header_stays_printable_ascii_and_nan_ranges_refused(run_cli, work):
-    """EDF header fields hold printable US-ASCII, bytes 32..126 (EDF+ specification, Kemp & Olivan 2003; from memory)."""
+    """EDF header fields hold printable US-ASCII, bytes 32..126.
+
+    Source: EDF+ specification, Kemp & Olivan 2003 (from memory).
+    """
     write_recording(Recording(_ecg(), FS, (HOSTILE_TEXT,), "mV", "ecg"), work / "hostile.edf")
     header = (work / "hostile.edf").read_bytes()[:512]
     assert all(32 <= b <= 126 for b in header)
@@ -684,7 +758,13 @@ def test_edf_header_stays_printable_ascii_and_nan_ranges_refused(run_cli, work):
 @pytest.mark.parametrize("scale,dtype", [(1e25, np.float32), (1e200, np.float64)])
 def test_absurdly_large_values_refused_not_overflowed(run_cli, work, scale, dtype):
     """Values whose squares overflow are refused up front, never cleaned into NaN."""
-    np.savez(work / "huge.npz", signal=(_ecg() * scale).astype(dtype), fs=np.float64(FS), units=np.array("mV"), kind=np.array("ecg"))
+    np.savez(
+        work / "huge.npz",
+        signal=(_ecg() * scale).astype(dtype),
+        fs=np.float64(FS),
+        units=np.array("mV"),
+        kind=np.array("ecg"),
+    )
     err = refused(run_cli, work.parent, "denoise", work / "huge.npz", work / "out.npz", mention="huge.npz")
     assert "units" in err
     refused(run_cli, work.parent, "assess", work / "huge.npz", work / "huge.npz", mention="huge.npz")
@@ -717,9 +797,28 @@ def test_duplicate_keys_refused_in_queue_settings_and_limits(run_cli, queue, wor
     assert "duplicate key 'defaults'" in err
     settings.write_text(original, encoding="utf-8")
     (work / "limits.yaml").write_text("flag_limits:\n  r-peak-change: {warn: 0.1, fail: 0.2}\n  r-peak-change: off\n")
-    err = refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--limits", work / "limits.yaml", mention="limits.yaml")
+    err = refused(
+        run_cli,
+        work.parent,
+        "assess",
+        work / "good.npz",
+        work / "good.npz",
+        "--limits",
+        work / "limits.yaml",
+        mention="limits.yaml",
+    )
     assert "duplicate key 'r-peak-change'" in err and "line 3" in err
-    refused(run_cli, work.parent, "denoise", work / "good.npz", work / "out.npz", "--assess", "--limits", work / "limits.yaml", mention="limits.yaml")
+    refused(
+        run_cli,
+        work.parent,
+        "denoise",
+        work / "good.npz",
+        work / "out.npz",
+        "--assess",
+        "--limits",
+        work / "limits.yaml",
+        mention="limits.yaml",
+    )
 
 
 def test_success_output_echoes_hostile_file_names_inert(run_cli, work):

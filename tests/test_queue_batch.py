@@ -133,7 +133,9 @@ def test_a_record_cleaned_elsewhere_is_reviewed_and_can_be_re_run(tmp_path):
     assert item.origin == "pair" and item.state == "to-review"
     [run] = queue.runs(record_id)
     assert run.origin == "external" and run.settings is None and run.settings_digest is None
-    assert (queue.root / "records" / record_id / "runs" / "run-001" / "cleaned.npz").read_bytes() == elsewhere.read_bytes()
+    assert (
+        queue.root / "records" / record_id / "runs" / "run-001" / "cleaned.npz"
+    ).read_bytes() == elsewhere.read_bytes()
     entry = queue.decide(record_id, "rerun", "try tracevet's engine", "mira")
     assert entry.get("origin") == "external" and entry.get("settings") is None
     [outcome] = clean_waiting(queue, workers=1)
@@ -175,7 +177,9 @@ def test_the_queue_settings_set_cleaning_and_flag_limits(queue_of_four, run_cli)
     queue, ids = queue_of_four
     text = queue.paths.settings.read_text()
     queue.paths.settings.write_text(
-        text.replace("cleaning: {}", "cleaning:\n  transform: dwt").replace("flag_limits: {}", "flag_limits:\n  qrs-widening: {warn: 3, fail: 5}")
+        text.replace("cleaning: {}", "cleaning:\n  transform: dwt").replace(
+            "flag_limits: {}", "flag_limits:\n  qrs-widening: {warn: 3, fail: 5}"
+        )
     )
     queue = Queue.open(queue.root)
     assert queue.settings.limits()["qrs-widening"].fail == 5

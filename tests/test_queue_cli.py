@@ -54,7 +54,9 @@ def test_decide_log_and_verify(run_cli, tmp_path):
     queue, ids = queue_with_runs(tmp_path)
     code, out, err = run_cli("decide", queue.root, ids[0], "accept", "--note", "fine", "--reviewer", "mira")
     assert code == 0 and "accepted by mira" in out
-    code, out, err = run_cli("decide", queue.root, ids[1], "rerun", "--note", "R peaks low", "--reviewer", "mira", "--set", "transform=dwt")
+    code, out, err = run_cli(
+        "decide", queue.root, ids[1], "rerun", "--note", "R peaks low", "--reviewer", "mira", "--set", "transform=dwt"
+    )
     assert code == 0 and "sent back" in out
     entry = queue.log_entries(ids[1])[-1]
     assert entry.get("requested_settings")["transform"] == "dwt"
@@ -133,7 +135,9 @@ def test_export_writes_data_manifests_and_report(run_cli, tmp_path):
     dest = tmp_path / "out"
     code, out, err = run_cli("export", queue.root, dest, "--reviewer", "mira")
     assert code == 0 and "exported 1" in out
-    assert sorted(p.name for p in dest.iterdir()) == sorted([f"{ids[0]}.npz", "manifest.csv", "manifest.json", "sign-off.txt"])
+    assert sorted(p.name for p in dest.iterdir()) == sorted(
+        [f"{ids[0]}.npz", "manifest.csv", "manifest.json", "sign-off.txt"]
+    )
     manifest = json.loads((dest / "manifest.json").read_text())
     [row] = manifest["records"]
     assert row["sha256"] == sha256_file(dest / f"{ids[0]}.npz") and row["reviewer"] == "mira"

@@ -42,7 +42,8 @@ def test_four_processes_record_a_thousand_decisions_with_an_intact_chain(tmp_pat
     context = multiprocessing.get_context("fork")
     results = context.Queue()
     processes = [
-        context.Process(target=_worker, args=(str(queue.root), f"reviewer-{k}", ids, k, results)) for k in range(WORKERS)
+        context.Process(target=_worker, args=(str(queue.root), f"reviewer-{k}", ids, k, results))
+        for k in range(WORKERS)
     ]
     for process in processes:
         process.start()
@@ -57,7 +58,9 @@ def test_four_processes_record_a_thousand_decisions_with_an_intact_chain(tmp_pat
     assert queue.verify() == []
 
     # No decision falls inside another reviewer's claim on the same record.
-    claims = [(record, since, until, reviewer) for reviewer, _, _, intervals in reports for record, since, until in intervals]
+    claims = [
+        (record, since, until, reviewer) for reviewer, _, _, intervals in reports for record, since, until in intervals
+    ]
     for entry in decisions:
         for record, since, until, holder in claims:
             if record == entry.record and holder != entry.reviewer:

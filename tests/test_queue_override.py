@@ -25,7 +25,9 @@ def test_deciding_over_a_colleagues_decision_needs_override_and_names_the_entry(
     assert queue.paths.log.stat().st_size == size
 
     # with --override it goes through, and the entry names the one it overrode (seq and hash)
-    code, out, err = run_cli("decide", queue.root, record, "accept", "--note", "fine", "--reviewer", "jonas", "--override")
+    code, out, err = run_cli(
+        "decide", queue.root, record, "accept", "--note", "fine", "--reviewer", "jonas", "--override"
+    )
     assert code == 0 and f"overrides entry {rejected.seq}" in out
     entry = [e for e in queue.log_entries(record) if e.event == "decision"][-1]
     assert entry.get("overrides") == {
@@ -135,7 +137,8 @@ def test_status_and_log_open_the_same_default_queue_as_review(monkeypatch, run_c
 
 def test_record_states_have_one_owner():
     # every state the queue reports is a RecordState, and the CLI's words come from it
-    assert [s.value for s in states_mod.STATES] == ["to-clean", "to-review", "in-review", "accepted", "rejected", "sent-back"]
+    words = ["to-clean", "to-review", "in-review", "accepted", "rejected", "sent-back"]
+    assert [s.value for s in states_mod.STATES] == words
     assert RecordState.SENT_BACK == "sent-back" and json.dumps({"s": RecordState.TO_REVIEW}) == '{"s": "to-review"}'
     from tracevet.app import queue_view
     from tracevet.workqueue import index

@@ -16,7 +16,9 @@ def test_building_the_command_line_imports_no_heavy_module():
         "import sys; from tracevet.cli.main import build_parser; build_parser(); "
         f"print(' '.join(m for m in {HEAVY!r} if m in sys.modules))"
     )
-    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env={"PYTHONPATH": str(SRC)}, check=True)
+    result = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env={"PYTHONPATH": str(SRC)}, check=True
+    )
     # A command module that imports one of these at import time slows every command, status included
     # (issue 4: status of 10,000 records in under a second): import it inside the command's function.
     assert result.stdout.strip() == ""

@@ -56,7 +56,10 @@ def test_intended_bad_records_are_flagged_and_good_ones_are_not(demo_queue):
         if spec.intended_flagged:
             assert summary.worst_severity == "fail", (record_id, summary.worst_severity)
         else:
-            assert summary.worst_severity is None, (record_id, [f["id"] for r in queue.runs(record_id) for f in r.flags])
+            assert summary.worst_severity is None, (
+                record_id,
+                [f["id"] for r in queue.runs(record_id) for f in r.flags],
+            )
 
 
 def test_demo_queue_verifies_and_originals_are_read_only(demo_queue):

@@ -55,7 +55,9 @@ class DemoRecord:
 
 SCENARIO: tuple[DemoRecord, ...] = (
     DemoRecord("dive03-diver-amund", "calm descent, light shivering", 120, 250, heart_rate_bpm=68, seed=3),
-    DemoRecord("dive03-diver-brita", "ascent with breathing drift", 180, 500, heart_rate_bpm=84, wander_mv=0.35, seed=4),
+    DemoRecord(
+        "dive03-diver-brita", "ascent with breathing drift", 180, 500, heart_rate_bpm=84, wander_mv=0.35, seed=4
+    ),
     DemoRecord(
         "dive04-diver-cato", "occasional premature ventricular beats", 90, 250,
         heart_rate_bpm=76, ectopic_every=9, seed=5,

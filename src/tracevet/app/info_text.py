@@ -170,7 +170,9 @@ def compare_panel(previous, shown) -> Text:
     """
     width = 14
     text = Text()
-    header = Text.assemble(("".ljust(24), ""), inert_text(previous.run_id, width), " -> ", inert_text(shown.run_id, width))
+    header = Text.assemble(
+        ("".ljust(24), ""), inert_text(previous.run_id, width), " -> ", inert_text(shown.run_id, width)
+    )
     text.append_text(header)
     text.append("\n")
     text.append("worst".ljust(24), style="dim")

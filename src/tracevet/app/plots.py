@@ -425,7 +425,10 @@ def render_beat_overlay(
         clean_marker = "braille" if colour else "dot"
         overlay = _render_plot(
             fig,
-            [(*thin(orig), TRACE_COLOURS["original"], "braille"), (*thin(clean), TRACE_COLOURS["cleaned"], clean_marker)],
+            [
+                (*thin(orig), TRACE_COLOURS["original"], "braille"),
+                (*thin(clean), TRACE_COLOURS["cleaned"], clean_marker),
+            ],
             x_low,
             x_high,
             low,

@@ -10,7 +10,6 @@ from __future__ import annotations
 from datetime import datetime, timezone
 from dataclasses import dataclass, field
 
-import numpy as np
 from rich.text import Text
 
 from tracevet.app.display import SEVERITY_RANK, inert_text, severity_key
@@ -130,7 +129,10 @@ def matches_filter(record: RecordSummary, chosen: str) -> bool:
 
 
 def sort_records(records: list, order: str) -> list:
-    """Sort for the worklist: ``flagged first`` (undecided, worst severity, most flags), ``id``, ``duration``, ``state``."""
+    """Sort for the worklist.
+
+    Orders: ``flagged first`` (undecided, worst severity, most flags), ``id``, ``duration``, ``state``.
+    """
     if order == "id":
         return sorted(records, key=lambda r: str(r.id))
     if order == "duration":

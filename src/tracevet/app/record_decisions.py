@@ -69,7 +69,8 @@ class DecisionActions:
                 self.notify("not overridden: nothing written")
 
         body = override_question(self.record_id, previous, decision)
-        self.app.push_screen(ConfirmScreen("OVERRIDE A COLLEAGUE'S DECISION?", body, f"Override with {decision}?"), answered)
+        question = ConfirmScreen("OVERRIDE A COLLEAGUE'S DECISION?", body, f"Override with {decision}?")
+        self.app.push_screen(question, answered)
 
     def ask_note(self, decision: str, override: bool) -> None:
         """The note prompt; its answer is written to the log."""

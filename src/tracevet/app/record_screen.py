@@ -24,7 +24,13 @@ MIN_SPAN_S = 0.5
 # How often a read-only record asks the queue whether its holder has let go.
 FOLLOW_SECONDS = 2.0
 PLOT_NAMES = ("original", "cleaned", "removed")
-PLOT_LABELS = {"original": "orig", "cleaned": "clean", "removed": "removed", "beat": "beats", "beat difference": "o - c"}
+PLOT_LABELS = {
+    "original": "orig",
+    "cleaned": "clean",
+    "removed": "removed",
+    "beat": "beats",
+    "beat difference": "o - c",
+}
 READ_ONLY_NAME_CHARS = 12
 
 
@@ -308,12 +314,14 @@ class RecordScreen(DecisionActions, Screen):
         run = self.shown_run
         rec = self.original
         if run is not None:
-            parts.append((1, severity_text(queue_view.worst_severity(run.assessment), len(queue_view.flag_list(run.assessment)))))
+            count = len(queue_view.flag_list(run.assessment))
+            parts.append((1, severity_text(queue_view.worst_severity(run.assessment), count)))
         if self.state:
             parts.append((2, inert_text(self.state, 12, style="bold")))
         if self.read_only:
             badge = Text("READ-ONLY ", style="reverse bold")
-            badge.append_text(inert_text(queue_view.holder_name(self.holder) or "?", READ_ONLY_NAME_CHARS, style="reverse"))
+            name = queue_view.holder_name(self.holder) or "?"
+            badge.append_text(inert_text(name, READ_ONLY_NAME_CHARS, style="reverse"))
             parts.append((2, badge))
         if rec is not None:
             channel = Text(f"ch {self.channel + 1}/{rec.n_channels} ")
@@ -436,7 +444,8 @@ class RecordScreen(DecisionActions, Screen):
         elif self.panel == "metrics":
             body = info_text.metrics_panel(run.assessment)
         elif self.panel == "run":
-            body = info_text.record_line(self.record_id, self.summary.source_name if self.summary else "", self.original)
+            source = self.summary.source_name if self.summary is not None else ""
+            body = info_text.record_line(self.record_id, source, self.original)
             body.append("\n")
             body.append_text(info_text.run_panel(run.info, self.runs, self.current_run_id))
         else:
@@ -476,7 +485,9 @@ class RecordScreen(DecisionActions, Screen):
         centre = self.start_s + self.span_s / 2
         target = regions.next_start(centre, backwards)
         if target is None:
-            self.notify("no further flagged region in this channel" if len(regions) else "no flagged regions in this channel")
+            self.notify(
+                "no further flagged region in this channel" if len(regions) else "no flagged regions in this channel"
+            )
             return
         self.view = "traces"
         self.start_s = target - self.span_s / 2

@@ -115,7 +115,9 @@ class WorklistScreen(Screen):
         )
         self.query_one("#worklist-status", Static).update(status)
         if not rows:
-            self.query_one("#worklist-detail", Static).update(Text("no record matches this filter (f: next filter)", style="dim"))
+            self.query_one("#worklist-detail", Static).update(
+                Text("no record matches this filter (f: next filter)", style="dim")
+            )
         if not self.records:
             self.notify("this queue holds no records yet: add some with 'tracevet add'", timeout=8)
 

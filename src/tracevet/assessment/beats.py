@@ -153,7 +153,9 @@ def _smoothed_rows(rows: np.ndarray, width: int) -> np.ndarray:
     return (csum[:, width:] - csum[:, :-width]) / width
 
 
-def align_to_template(original: np.ndarray, centres: np.ndarray, half: int, max_lag: int, fs: float, rounds: int = 2) -> np.ndarray:
+def align_to_template(
+    original: np.ndarray, centres: np.ndarray, half: int, max_lag: int, fs: float, rounds: int = 2
+) -> np.ndarray:
     """Shift each centre by the lag (|lag| <= max_lag) that best matches the median QRS.
 
     The score is the correlation of each beat's QRS window (+-``half``) with

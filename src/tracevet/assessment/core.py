@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Callable, Mapping
 
 import numpy as np
 
 from tracevet.assessment.beats import build_windows
-from tracevet.assessment.flags import Flag, evaluate, no_beats_flag
+from tracevet.assessment.flags import Flag, evaluate, merge_stretches, no_beats_flag
 from tracevet.assessment.limits import Limits, LimitSpec, default_limits, limits_from_mapping
 from tracevet.assessment.result import Assessment, ChannelBeats
 from tracevet.assessment.shape_measures import measure_templates
@@ -105,12 +106,48 @@ def _regions(flags: list[Flag], peaks_s: np.ndarray, pre_s: float, post_s: float
     for flag in flags:
         span = _REGION_SPAN.get(flag.id)
         if span is not None and peaks_s.size:
-            lo, hi = {"qrs": (-0.1, 0.1), "after": (0.0, post_s), "before": (-pre_s, 0.0), "beat": (-pre_s, post_s)}[span]
+            lo, hi = {"qrs": (-0.1, 0.1), "after": (0.0, post_s), "before": (-pre_s, 0.0), "beat": (-pre_s, post_s)}[
+                span
+            ]
             rows.extend(zip((peaks_s + lo).tolist(), (peaks_s + hi).tolist(), [flag.id] * peaks_s.size))
         for start, end in extra.get(flag.id, ()):
             rows.append((float(start), float(end), flag.id))
     rows.sort(key=lambda r: (r[0], r[1], r[2]))
     return tuple(rows)
+
+
+def beats_within(where, peaks_s: np.ndarray, pre_s: float, post_s: float) -> int:
+    """Number of beats whose window [R - pre, R + post] overlaps one of the sorted, merged stretches ``where``."""
+    if not where or peaks_s.size == 0:
+        return 0
+    bounds = np.asarray(where, dtype=np.float64)
+    # The last stretch starting before the beat window's end must end after its start.
+    i = np.searchsorted(bounds[:, 0], peaks_s + post_s, side="right") - 1
+    ok = i >= 0
+    return int(np.sum(ok & (bounds[np.maximum(i, 0), 1] >= peaks_s - pre_s)))
+
+
+def _locate(flags: list[Flag], duration: float, extra: dict, peaks_s: np.ndarray, pre_s: float, post_s: float,
+            measured: int, local: dict | None = None) -> list[Flag]:
+    """Give every flag its ``where`` stretches and beat counts.
+
+    ``local`` maps a flag id to ``(where, more, affected, measured)`` for the
+    flags judged stretch by stretch; ``extra`` maps a flag id to the sample
+    stretches of the whole-trace checks (clipping, edges). Any other flag was
+    read from the whole record's templates and covers the whole record.
+    """
+    out = []
+    for flag in flags:
+        if local and flag.id in local:
+            where, more, affected, n = local[flag.id]
+        elif flag.id in extra and flag.id != "no-beats":
+            spans = extra[flag.id]
+            where, more = merge_stretches([a for a, _ in spans], [b for _, b in spans])
+            affected, n = beats_within(where, peaks_s, pre_s, post_s), measured
+        else:
+            where, more, affected, n = ((0.0, duration),), 0, measured, measured
+        out.append(replace(flag, where=where, where_more=more, beats_affected=affected, beats_measured=n))
+    return out
 
 
 def assess_channel(
@@ -160,6 +197,7 @@ def assess_channel(
             flags.append(flag)
         extra_regions["no-beats"] = [(0.0, duration)]
         flags += evaluate(channel, metrics, allowance, limits)
+        flags = _locate(flags, duration, extra_regions, peaks / fs, 0.0, 0.0, int(peaks.size))
         empty = np.empty(0)
         labels = np.full(peaks.size, -1, dtype=np.int8)
         regions = _regions(flags, empty, 0.0, 0.0, extra_regions)
@@ -174,6 +212,7 @@ def assess_channel(
     metrics["heart_rate_bpm"] = 60.0 / windows.rr_s if windows.rr_s > 0 else None
     flags += evaluate(channel, metrics, allowance, limits)
     peaks_s = windows.peaks[labels == 0] / fs
+    flags = _locate(flags, duration, extra_regions, peaks_s, windows.pre / fs, windows.post / fs, int(peaks_s.size))
     regions = _regions(flags, peaks_s, windows.pre / fs, windows.post / fs, extra_regions)
     beats = ChannelBeats(
         channel=channel,

@@ -9,9 +9,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from tracevet.assessment.limits import Limits, LimitSpec
 
 SEVERITIES = ("warn", "fail")
+# Most stretches a flag lists in ``where``; the rest are counted in ``where_more``.
+WHERE_CAP = 20
 
 
 @dataclass(frozen=True)
@@ -32,6 +36,14 @@ class Flag:
         Where the limit comes from.
     channel : str
         Channel name.
+    where : tuple of (start_s, end_s)
+        Merged stretches the flag covers, seconds from the record start,
+        sorted, at most :data:`WHERE_CAP`; a flag for the whole record lists
+        ``((0.0, duration_s),)``.
+    where_more : int
+        Stretches left off ``where`` by the cap.
+    beats_affected, beats_measured : int or None
+        Beats inside the flagged stretches, and beats the measure could read.
     """
 
     id: str
@@ -41,9 +53,18 @@ class Flag:
     limit: float | None
     source: str
     channel: str
+    where: tuple = ()
+    where_more: int = 0
+    beats_affected: int | None = None
+    beats_measured: int | None = None
 
     def to_json_dict(self) -> dict:
-        """The JSON contract of one flag: id, severity, message, value, limit, source."""
+        """The JSON contract of one flag.
+
+        id, severity, message, value, limit, source (stable since the first
+        release), plus ``where`` (``[[start_s, end_s], ...]``), ``where_more``,
+        ``beats_affected`` and ``beats_measured``.
+        """
         return {
             "id": self.id,
             "severity": self.severity,
@@ -51,7 +72,60 @@ class Flag:
             "value": _json_number(self.value),
             "limit": _json_number(self.limit),
             "source": self.source,
+            "where": [[round(float(a), 3), round(float(b), 3)] for a, b in self.where],
+            "where_more": int(self.where_more),
+            "beats_affected": None if self.beats_affected is None else int(self.beats_affected),
+            "beats_measured": None if self.beats_measured is None else int(self.beats_measured),
         }
+
+    def where_text(self) -> str:
+        """The stretches for a report line, e.g. ``12.4-31.9 s, 23 of 143 beats; 40.0-41.5 s``."""
+        parts = [f"{a:.1f}-{b:.1f} s" for a, b in self.where]
+        text = "; ".join(parts) if parts else "whole record"
+        if self.where_more:
+            text += f"; and {self.where_more} more stretch(es)"
+        if self.beats_affected is not None and self.beats_measured is not None:
+            text += f", {self.beats_affected} of {self.beats_measured} beats"
+        return text
+
+
+def merge_stretches(starts, ends, join_s: float = 0.0, cap: int = WHERE_CAP) -> tuple[tuple, int]:
+    """Merge time stretches that overlap or lie within ``join_s`` of each other.
+
+    Parameters
+    ----------
+    starts, ends : array-like
+        Stretch bounds in seconds (any order).
+    join_s : float
+        Stretches closer than this are joined into one.
+    cap : int
+        Most stretches returned.
+
+    Returns
+    -------
+    (where, more)
+        ``where`` the merged stretches ``((start_s, end_s), ...)`` sorted by
+        start, at most ``cap`` of them (the longest when there are more, kept
+        in time order); ``more`` the number left off. Vectorised: a sort and
+        a cumulative maximum (interval union, common practice).
+    """
+    starts = np.asarray(starts, dtype=np.float64).reshape(-1)
+    ends = np.asarray(ends, dtype=np.float64).reshape(-1)
+    if starts.size == 0:
+        return (), 0
+    order = np.argsort(starts, kind="stable")
+    s, e = starts[order], np.maximum(ends[order], starts[order])
+    reach = np.maximum.accumulate(e)
+    new = np.ones(s.size, dtype=bool)
+    new[1:] = s[1:] > reach[:-1] + join_s
+    first = np.flatnonzero(new)
+    last = np.concatenate([first[1:], [s.size]]) - 1
+    merged_s, merged_e = s[first], reach[last]
+    more = max(0, merged_s.size - cap)
+    if more:
+        keep = np.sort(np.argsort(-(merged_e - merged_s), kind="stable")[:cap])
+        merged_s, merged_e = merged_s[keep], merged_e[keep]
+    return tuple((float(a), float(b)) for a, b in zip(merged_s, merged_e)), int(more)
 
 
 def _json_number(value):
@@ -61,7 +135,9 @@ def _json_number(value):
     return value if value == value and abs(value) != float("inf") else None
 
 
-def grade(value: float | None, warn: float | None, fail: float | None, allowance: float = 0.0) -> tuple[str | None, float | None]:
+def grade(
+    value: float | None, warn: float | None, fail: float | None, allowance: float = 0.0
+) -> tuple[str | None, float | None]:
     """Severity of ``value`` against (warn, fail), each widened to ``allowance``.
 
     Returns (severity or None, the limit that was crossed or, when none was,

@@ -224,7 +224,9 @@ def limits_from_mapping(mapping: Mapping | None, source: str = "flag_limits") ->
     for key, value in mapping.items():
         flag_id = str(key)
         if flag_id not in defaults:
-            raise InputError(source, f"unknown flag id {flag_id[:40]!r} in flag_limits (known: {', '.join(sorted(FLAG_IDS))})")
+            raise InputError(
+                source, f"unknown flag id {flag_id[:40]!r} in flag_limits (known: {', '.join(sorted(FLAG_IDS))})"
+            )
         spec = defaults[flag_id]
         if value is False or (isinstance(value, str) and value.strip().lower() == "off"):
             result[flag_id] = replace(spec, enabled=False)
@@ -235,13 +237,17 @@ def limits_from_mapping(mapping: Mapping | None, source: str = "flag_limits") ->
         for name, raw in value.items():
             name = str(name)
             if name not in _KEYS:
-                raise InputError(source, f"flag_limits.{flag_id}: unknown key {name[:30]!r} (known: {', '.join(_KEYS)})")
+                raise InputError(
+                    source, f"flag_limits.{flag_id}: unknown key {name[:30]!r} (known: {', '.join(_KEYS)})"
+                )
             if name.endswith("_relative") and not spec.amplitude:
                 raise InputError(source, f"flag_limits.{flag_id}: {name} applies to amplitude flags only")
             changes[name] = _number(raw, f"flag_limits.{flag_id}.{name}", source)
         new = replace(spec, **changes)
         for warn, fail, label in ((new.warn, new.fail, ""), (new.warn_relative, new.fail_relative, "_relative")):
             if warn is not None and fail is not None and warn > fail:
-                raise InputError(source, f"flag_limits.{flag_id}: warn{label} ({warn:g}) is above fail{label} ({fail:g})")
+                raise InputError(
+                    source, f"flag_limits.{flag_id}: warn{label} ({warn:g}) is above fail{label} ({fail:g})"
+                )
         result[flag_id] = new
     return result

@@ -64,6 +64,10 @@ def _clean_number(value):
     return value if math.isfinite(value) else None
 
 
+def _optional_int(value):
+    return None if value is None else int(value)
+
+
 @dataclass
 class Assessment:
     """Result of comparing a cleaned recording with its original.
@@ -127,7 +131,9 @@ class Assessment:
         np.savez_compressed(buffer, **arrays)
         write_bytes_atomic(folder / BEATS_NAME, buffer.getvalue())
         document = self.to_json_dict()
-        document["context"] = dict(self.context, beat_count=int(self.beat_count), flag_channels=[f.channel for f in self.flags])
+        document["context"] = dict(
+            self.context, beat_count=int(self.beat_count), flag_channels=[f.channel for f in self.flags]
+        )
         write_text_atomic(folder / JSON_NAME, json.dumps(document, indent=2, allow_nan=False) + "\n")
 
     @classmethod
@@ -157,6 +163,10 @@ class Assessment:
                         limit=item["limit"],
                         source=str(item["source"]),
                         channel=str(channels_of_flags[i]) if i < len(channels_of_flags) else "",
+                        where=tuple((float(a), float(b)) for a, b in item.get("where", [])),
+                        where_more=int(item.get("where_more", 0)),
+                        beats_affected=_optional_int(item.get("beats_affected")),
+                        beats_measured=_optional_int(item.get("beats_measured")),
                     )
                 )
             beat_count = int(context.pop("beat_count", 0))

@@ -16,7 +16,15 @@ import numpy as np
 
 from tracevet.assessment.beats import BeatWindows, median_standard_error, median_template
 from tracevet.assessment.comparison import correlation, prd, prdn, rmse
-from tracevet.assessment.fiducials import SLOPE_SMOOTH_S, Fiducials, at_limit, find_fiducials, moving_average, qrs_bounds, slope_of
+from tracevet.assessment.fiducials import (
+    SLOPE_SMOOTH_S,
+    Fiducials,
+    at_limit,
+    find_fiducials,
+    moving_average,
+    qrs_bounds,
+    slope_of,
+)
 from tracevet.assessment.removed_part import detrended, remove_slow_trend, slope_noise, smooth_rows_same
 
 
@@ -213,7 +221,9 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
         slope = np.diff(x_t[lo:hi])
         energy = float(np.sum(slope * slope))
         sigma_qrs = float(np.sqrt(np.mean(sigma_t[lo:hi] ** 2)))
-        allowance["r_timing_shift_ms"] = k * 1000.0 / fs * np.sqrt(2.0) * sigma_qrs / np.sqrt(energy) if energy > 0 else float("inf")
+        allowance["r_timing_shift_ms"] = (
+            k * 1000.0 / fs * np.sqrt(2.0) * sigma_qrs / np.sqrt(energy) if energy > 0 else float("inf")
+        )
     else:
         metrics["r_timing_shift_ms"] = None
 

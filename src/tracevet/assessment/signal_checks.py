@@ -108,7 +108,9 @@ def _bend(rows: np.ndarray, smooth: int) -> np.ndarray:
 
 
 def _off_line(rows: np.ndarray, far_second_half: bool) -> np.ndarray:
-    """Peak-to-peak of each row after the straight line fitted on one half (least squares, extended over the row) is removed.
+    """Peak-to-peak of each row after removing the straight line fitted on one half.
+
+    The line is a least-squares fit, extended over the whole row.
 
     Fitted on the half away from the record's edge, the line follows a slow
     ramp there and extends it to the edge: a ramp leaves nothing, a

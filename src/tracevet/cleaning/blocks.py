@@ -69,7 +69,11 @@ def process_inplace(
         if pending is not None:
             buf[pending[0] : pending[1]] = pending[2]
         result = func(segment, block)
-        pending = (block.core_start, block.core_stop, result[block.core_offset : block.core_offset + block.core_stop - block.core_start])
+        pending = (
+            block.core_start,
+            block.core_stop,
+            result[block.core_offset : block.core_offset + block.core_stop - block.core_start],
+        )
         del segment, result
         if after_block is not None:
             after_block(i)

@@ -210,7 +210,9 @@ def clean(
         if progress is not None:
             sub = lambda f, c=c: progress((c + f) / n_channels)  # noqa: E731
         if n_channels == 1:
-            clean_channel(samples[:, 0], recording.fs, settings, recording.source, sub, block_samples, out=result.reshape(n))
+            clean_channel(
+                samples[:, 0], recording.fs, settings, recording.source, sub, block_samples, out=result.reshape(n)
+            )
         else:
             result[:, c] = clean_channel(samples[:, c], recording.fs, settings, recording.source, sub, block_samples)
     if progress is not None:

@@ -42,7 +42,9 @@ def baseline_sos(fs: float, cutoff_hz: float, order: int = BASELINE_ORDER) -> np
     low-frequency cutoff, or up to 0.67 Hz only with linear-phase filtering.
     """
     if not 0 < cutoff_hz < fs / 2:
-        raise SettingsError("baseline_cutoff_hz", f"{cutoff_hz:g} Hz is not below half the sampling rate ({fs / 2:g} Hz)")
+        raise SettingsError(
+            "baseline_cutoff_hz", f"{cutoff_hz:g} Hz is not below half the sampling rate ({fs / 2:g} Hz)"
+        )
     _check_band("baseline_cutoff_hz", "cutoff", cutoff_hz, fs)
     # Digital Butterworth: r = tan(pi f / fs) / tan(pi f_c / fs) (bilinear transform).
     ratio = (math.sqrt(2.0) + 1.0) ** (1.0 / (2 * order))
@@ -50,7 +52,9 @@ def baseline_sos(fs: float, cutoff_hz: float, order: int = BASELINE_ORDER) -> np
     return signal.butter(order, corner, btype="highpass", output="sos", fs=fs)
 
 
-def mains_sos(fs: float, mains_hz: float, harmonics: int, bandwidth_hz: float = MAINS_BANDWIDTH_HZ) -> np.ndarray | None:
+def mains_sos(
+    fs: float, mains_hz: float, harmonics: int, bandwidth_hz: float = MAINS_BANDWIDTH_HZ
+) -> np.ndarray | None:
     """Notch sections at ``mains_hz`` and its multiples below the Nyquist frequency.
 
     Each notch is a second-order IIR notch (``scipy.signal.iirnotch``) with
@@ -98,7 +102,9 @@ def stage_filters(fs: float, settings) -> list[tuple[np.ndarray, float]]:
     Designs are cached per rate and settings (the arrays are shared: do not modify them).
     """
     return list(
-        _stage_filters(float(fs), settings.baseline, settings.baseline_cutoff_hz, settings.mains, settings.mains_harmonics)
+        _stage_filters(
+            float(fs), settings.baseline, settings.baseline_cutoff_hz, settings.mains, settings.mains_harmonics
+        )
     )
 
 

@@ -48,7 +48,9 @@ class LevelStatistics:
     def __init__(self, n: int, levels: int, settings: CleaningSettings):
         self.n = n
         self.totals = [max(1, n >> j) for j in range(1, levels + 1)]
-        full = [j == 1 or settings.noise_estimate == "per_level" or settings.rule == "bayes" for j in range(1, levels + 1)]
+        full = [
+            j == 1 or settings.noise_estimate == "per_level" or settings.rule == "bayes" for j in range(1, levels + 1)
+        ]
         caps = [STATS_MAX_COEFFS if f else SURE_MAX_COEFFS for f in full]
         self.strides = [max(1, math.ceil(t / cap)) for t, cap in zip(self.totals, caps)]
         self.parts: list[list[np.ndarray]] = [[] for _ in range(levels)]
@@ -78,7 +80,9 @@ class LevelStatistics:
 
     def thresholds(self, settings: CleaningSettings, level: int) -> list[float]:
         """Thresholds in signal units for detail levels 1..level (finest first)."""
-        mags = [(p[0] if len(p) == 1 else np.concatenate(p)) if p else np.zeros(1, dtype=np.float32) for p in self.parts]
+        mags = [
+            (p[0] if len(p) == 1 else np.concatenate(p)) if p else np.zeros(1, dtype=np.float32) for p in self.parts
+        ]
         # The magnitudes may be reordered in place only when no later rule needs them.
         reorder = settings.rule in ("universal", "minimax")
         sigmas = level_sigmas(mags, settings.noise_estimate, magnitudes=reorder)
@@ -142,5 +146,7 @@ def level_thresholds(
             details, left = shrinkage.swt_phase0_details(segment, wavelet, settings.extension, level, levels)
             stats.add(details, block.core_start, block.core_stop, block.start - left)
         else:
-            stats.add(_dwt_stats_details(segment, settings, levels, wavelet), block.core_start, block.core_stop, block.start)
+            stats.add(
+                _dwt_stats_details(segment, settings, levels, wavelet), block.core_start, block.core_stop, block.start
+            )
     return stats.thresholds(settings, level)

@@ -83,7 +83,9 @@ def resolve_level(settings, fs: float, n_samples: int, wavelet: str | None = Non
     if settings.level == "auto":
         if deepest < 1:
             need = min_samples(1, wavelet)
-            raise SettingsError(source, f"{n_samples} samples are too short to clean with wavelet {wavelet} (needs at least {need})")
+            raise SettingsError(
+                source, f"{n_samples} samples are too short to clean with wavelet {wavelet} (needs at least {need})"
+            )
         return min(auto_level(fs), deepest)
     level = int(settings.level)
     if level > deepest:

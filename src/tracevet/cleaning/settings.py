@@ -172,7 +172,9 @@ def _validate(s: CleaningSettings, source: str) -> None:
     if isinstance(cutoff, bool) or not isinstance(cutoff, (int, float)):
         raise SettingsError(source, f"baseline_cutoff_hz must be a number in Hz, got {cutoff!r}")
     if not (math.isfinite(cutoff) and 0 < cutoff <= _CUTOFF_MAX_HZ):
-        raise SettingsError(source, f"baseline_cutoff_hz must be above 0 and at most {_CUTOFF_MAX_HZ:g} Hz, got {cutoff!r}")
+        raise SettingsError(
+            source, f"baseline_cutoff_hz must be above 0 and at most {_CUTOFF_MAX_HZ:g} Hz, got {cutoff!r}"
+        )
     object.__setattr__(s, "baseline_cutoff_hz", float(cutoff))
     harmonics = s.mains_harmonics
     if isinstance(harmonics, bool) or not isinstance(harmonics, int) or not 1 <= harmonics <= _HARMONICS_MAX:

@@ -78,7 +78,9 @@ def dwt_details(segment: np.ndarray, wavelet: str, mode: str, level: int) -> lis
     return coeffs[:0:-1]
 
 
-def dwt_shrink(segment: np.ndarray, wavelet: str, mode: str, level: int, lams: Sequence[float], threshold_mode: str) -> np.ndarray:
+def dwt_shrink(
+    segment: np.ndarray, wavelet: str, mode: str, level: int, lams: Sequence[float], threshold_mode: str
+) -> np.ndarray:
     """Decimated wavelet shrinkage of a segment.
 
     ``pywt.wavedec``, each detail level ``j`` (``lams[j-1]``, finest first)
@@ -169,7 +171,9 @@ def swt_extend(segment: np.ndarray, wavelet, mode: str, level: int) -> tuple[np.
     return pywt.pad(segment, (left, right), pad_mode), left
 
 
-def swt_phase0_details(segment: np.ndarray, wavelet, mode: str, level: int, levels: int) -> tuple[list[np.ndarray], int]:
+def swt_phase0_details(
+    segment: np.ndarray, wavelet, mode: str, level: int, levels: int
+) -> tuple[list[np.ndarray], int]:
     """The decimation-phase-0 detail rows of :func:`swt_shrink`'s transform, finest first.
 
     They are the periodic DWT (``pywt.wavedec``, mode ``periodization``) of

@@ -2,7 +2,7 @@
 
 Contract for scripts (keep stable): with ``--json`` exactly one JSON object on
 stdout, ``{"metrics": {...}, "flags": [{"id", "severity", "message", "value",
-"limit", "source"}, ...]}``; exit 0 when no flag is ``fail``, 1 when at least
+"limit", "source", "where", "where_more", "beats_affected", "beats_measured"}, ...]}``; exit 0 when no flag is ``fail``, 1 when at least
 one is, 2 with one line on stderr for bad input or usage.
 """
 
@@ -119,6 +119,7 @@ def report_text(result, original: Recording, args: argparse.Namespace) -> str:
         lines.append(f"flags ({len(result.flags)}):")
         for flag in result.flags:
             lines.append(f"  {flag.severity.upper():4s} {flag.id}: {inert(flag.message)}")
+            lines.append(f"       where: {flag.where_text()}")
             lines.append(f"       source: {inert(flag.source)}")
     else:
         lines.append("flags: none")
@@ -166,9 +167,19 @@ def run(args: argparse.Namespace) -> int:
 def add_denoise_assess_arguments(parser: argparse.ArgumentParser) -> None:
     """``tracevet denoise`` options that assess the cleaned result in the same pass."""
     group = parser.add_argument_group("assessment of the result")
-    group.add_argument("--assess", action="store_true", help="assess the cleaned result against INPUT and print the report; exit 1 when a flag fails")
-    group.add_argument("--assess-json", metavar="FILE", help="write the assessment's JSON object (metrics and flags) to FILE (.json); implies --assess")
-    group.add_argument("--limits", metavar="FILE", help="YAML file with flag limits for the assessment (a flag_limits: mapping)")
+    group.add_argument(
+        "--assess",
+        action="store_true",
+        help="assess the cleaned result against INPUT and print the report; exit 1 when a flag fails",
+    )
+    group.add_argument(
+        "--assess-json",
+        metavar="FILE",
+        help="write the assessment's JSON object (metrics and flags) to FILE (.json); implies --assess",
+    )
+    group.add_argument(
+        "--limits", metavar="FILE", help="YAML file with flag limits for the assessment (a flag_limits: mapping)"
+    )
 
 
 def check_denoise_assess_args(args: argparse.Namespace):
@@ -217,9 +228,16 @@ def register(subparsers) -> argparse.ArgumentParser:
         ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    parser.add_argument("original", metavar="ORIGINAL", help=f"the recording before cleaning ({', '.join(SUPPORTED_READ)})")
+    parser.add_argument(
+        "original", metavar="ORIGINAL", help=f"the recording before cleaning ({', '.join(SUPPORTED_READ)})"
+    )
     parser.add_argument("cleaned", metavar="CLEANED", help="the cleaned recording (same length, rate and channels)")
-    parser.add_argument("--fs", type=float, metavar="HZ", help="sampling rate in Hz (needed for .npy; must agree with the files otherwise)")
+    parser.add_argument(
+        "--fs",
+        type=float,
+        metavar="HZ",
+        help="sampling rate in Hz (needed for .npy; must agree with the files otherwise)",
+    )
     parser.add_argument("--kind", choices=KINDS, help="ecg, mcg or other (overrides the files)")
     parser.add_argument("--units", metavar="U", help="units of the samples: mV, uV, pT, fT... (overrides the files)")
     parser.add_argument("--limits", metavar="FILE", help="YAML file with flag limits (a flag_limits: mapping)")

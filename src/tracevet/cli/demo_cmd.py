@@ -36,7 +36,7 @@ def run(args: argparse.Namespace) -> int:
 
     target = Path(args.queue)
     if args.files_only:
-        for spec, original, cleaned in demo.write_scenario_files(target):
+        for _spec, original, cleaned in demo.write_scenario_files(target):
             print(inert(original))
             if cleaned is not None:
                 print(inert(cleaned))

@@ -77,14 +77,23 @@ def settings_reference() -> str:
 def add_input_arguments(parser: argparse.ArgumentParser) -> None:
     """INPUT and the options that say how to read it (--fs, --kind, --units)."""
     parser.add_argument("input", metavar="INPUT", nargs="?", help=f"recording to clean ({', '.join(SUPPORTED_READ)})")
-    parser.add_argument("--fs", type=float, metavar="HZ", help="sampling rate in Hz (needed for .npy; must agree with the file otherwise)")
+    parser.add_argument(
+        "--fs",
+        type=float,
+        metavar="HZ",
+        help="sampling rate in Hz (needed for .npy; must agree with the file otherwise)",
+    )
     parser.add_argument("--kind", choices=KINDS, help="what the recording is: ecg, mcg or other (overrides the file)")
     parser.add_argument("--units", metavar="U", help="units of the samples, e.g. mV, uV, pT, fT (overrides the file)")
 
 
 def add_settings_arguments(parser: argparse.ArgumentParser) -> None:
     """--profile, --set and --show-settings."""
-    parser.add_argument("--profile", metavar="FILE", help="YAML profile of settings (safe loading only); unnamed settings keep their default")
+    parser.add_argument(
+        "--profile",
+        metavar="FILE",
+        help="YAML profile of settings (safe loading only); unnamed settings keep their default",
+    )
     parser.add_argument(
         "--set",
         dest="overrides",
@@ -93,7 +102,9 @@ def add_settings_arguments(parser: argparse.ArgumentParser) -> None:
         default=[],
         help="change one setting, after the profile (repeatable), e.g. --set level=5",
     )
-    parser.add_argument("--show-settings", action="store_true", help="print the effective settings as YAML and their SHA-256 digest")
+    parser.add_argument(
+        "--show-settings", action="store_true", help="print the effective settings as YAML and their SHA-256 digest"
+    )
 
 
 def settings_from_args(args: argparse.Namespace) -> CleaningSettings:
@@ -114,7 +125,9 @@ def check_output_path(output: str, input_path: str | None = None) -> Path:
     path = Path(output)
     suffix = path.suffix.lower()
     if suffix not in SUPPORTED_WRITE:
-        raise InputError(output, f"cannot write '{suffix or 'no extension'}' files (supported: {', '.join(SUPPORTED_WRITE)})")
+        raise InputError(
+            output, f"cannot write '{suffix or 'no extension'}' files (supported: {', '.join(SUPPORTED_WRITE)})"
+        )
     if path.is_dir():
         raise InputError(output, "is a folder, not a file name")
     if not (path.parent if str(path.parent) else Path(".")).is_dir():
@@ -170,7 +183,12 @@ def register(subparsers) -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     add_input_arguments(parser)
-    parser.add_argument("output", metavar="OUTPUT", nargs="?", help=f"where to write the cleaned recording ({', '.join(SUPPORTED_WRITE)})")
+    parser.add_argument(
+        "output",
+        metavar="OUTPUT",
+        nargs="?",
+        help=f"where to write the cleaned recording ({', '.join(SUPPORTED_WRITE)})",
+    )
     add_settings_arguments(parser)
     assess_cmd.add_denoise_assess_arguments(parser)
     parser.set_defaults(func=run)

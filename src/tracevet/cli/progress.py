@@ -44,7 +44,8 @@ class ProgressBar:
             tail = f"done in {_duration(elapsed)}"
         else:
             tail = ""
-        return f"{self.label} [{'#' * filled}{'-' * (self.width - filled)}] {int(done)}/{total} {fraction * 100:3.0f}%  {tail}".rstrip()
+        bar = "#" * filled + "-" * (self.width - filled)
+        return f"{self.label} [{bar}] {int(done)}/{total} {fraction * 100:3.0f}%  {tail}".rstrip()
 
     def update(self, done: float, total: int) -> None:
         """Show progress ``done`` of ``total`` (at most ten redraws a second on a terminal)."""

@@ -16,19 +16,37 @@ from tracevet.text import inert
 
 def register(subparsers) -> None:
     """Add the queue commands to the ``tracevet`` parser."""
-    p = subparsers.add_parser("init", help="make a new work queue folder", description="Make a new, empty work queue folder.")
+    p = subparsers.add_parser(
+        "init", help="make a new work queue folder", description="Make a new, empty work queue folder."
+    )
     p.add_argument("queue", metavar="QUEUE", help="folder to create (or an empty one)")
     p.add_argument("--profile", metavar="FILE", help="cleaning profile (YAML) the queue cleans with")
-    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="cleaning setting for the queue (repeatable)")
+    p.add_argument(
+        "--set",
+        dest="overrides",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="cleaning setting for the queue (repeatable)",
+    )
     p.add_argument("--kind", default="ecg", help="kind for files that do not say: ecg, mcg, other (default ecg)")
     p.add_argument("--units", default="mV", help="units for files that do not say (default mV)")
-    p.add_argument("--claim-idle-minutes", type=float, default=30.0, metavar="MIN", help="idle time after which a claim may be taken over (default 30)")
+    p.add_argument(
+        "--claim-idle-minutes",
+        type=float,
+        default=30.0,
+        metavar="MIN",
+        help="idle time after which a claim may be taken over (default 30)",
+    )
     p.set_defaults(func=cmd_init)
 
     p = subparsers.add_parser(
         "add",
         help="add recordings to a queue",
-        description="Add raw recordings (cleaned later by 'tracevet clean'), or with --pair one recording already cleaned elsewhere.",
+        description=(
+            "Add raw recordings (cleaned later by 'tracevet clean'), "
+            "or with --pair one recording already cleaned elsewhere."
+        ),
     )
     p.add_argument("queue", metavar="QUEUE")
     p.add_argument("files", nargs="*", metavar="FILE", help="recordings (.csv, .npy, .npz, .edf)")
@@ -47,11 +65,22 @@ def register(subparsers) -> None:
     )
     p.add_argument("queue", metavar="QUEUE")
     p.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
-    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="change a cleaning setting for this batch")
+    p.add_argument(
+        "--set",
+        dest="overrides",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="change a cleaning setting for this batch",
+    )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_clean)
 
-    p = subparsers.add_parser("status", help="counts per state, flags and who holds what", description="Show the queue's records by state, flags and claims.")
+    p = subparsers.add_parser(
+        "status",
+        help="counts per state, flags and who holds what",
+        description="Show the queue's records by state, flags and claims.",
+    )
     p.add_argument("queue", metavar="QUEUE", nargs="?", help=QUEUE_HELP)
     p.add_argument("--list", action="store_true", help="one line per record")
     p.add_argument("--json", action="store_true", help="machine-readable output")
@@ -60,7 +89,10 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "decide",
         help="accept, reject or send back a record",
-        description="Record a decision on a record's run (default: the newest). A rejection needs a note; so does accepting a run with a fail flag.",
+        description=(
+            "Record a decision on a record's run (default: the newest). "
+            "A rejection needs a note; so does accepting a run with a fail flag."
+        ),
     )
     p.add_argument("queue", metavar="QUEUE")
     p.add_argument("record", metavar="RECORD")
@@ -68,7 +100,14 @@ def register(subparsers) -> None:
     p.add_argument("--note", default="", help="why (stored as typed)")
     p.add_argument("--reviewer", help="who decides (default $TRACEVET_REVIEWER or login name)")
     p.add_argument("--run", help="the run signed off (default: the newest)")
-    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="with rerun: settings for the re-run (over the queue's)")
+    p.add_argument(
+        "--set",
+        dest="overrides",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="with rerun: settings for the re-run (over the queue's)",
+    )
     p.add_argument("--profile", metavar="FILE", help="with rerun: a profile for the re-run")
     p.add_argument(
         "--override",
@@ -78,7 +117,10 @@ def register(subparsers) -> None:
     p.add_argument("--json", action="store_true", help="print the log entry as JSON")
     p.set_defaults(func=cmd_decide)
 
-    for name, text in (("claim", "mark a record as being reviewed by you"), ("release", "give up your claim on a record")):
+    for name, text in (
+        ("claim", "mark a record as being reviewed by you"),
+        ("release", "give up your claim on a record"),
+    ):
         p = subparsers.add_parser(name, help=text, description=text[0].upper() + text[1:] + ".")
         p.add_argument("queue", metavar="QUEUE")
         p.add_argument("record", metavar="RECORD")
@@ -88,7 +130,10 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "log",
         help="show or verify the decision log",
-        description="Show the decision log, check it (--verify: hash chain, every referenced file, the index) or remove a torn last line (--repair).",
+        description=(
+            "Show the decision log, check it (--verify: hash chain, every referenced file, the index) "
+            "or remove a torn last line (--repair)."
+        ),
     )
     p.add_argument("queue", metavar="QUEUE", nargs="?", help=QUEUE_HELP)
     p.add_argument("--record", help="only entries about this record")
@@ -102,7 +147,10 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "export",
         help="export accepted records with a manifest and sign-off report",
-        description="Copy the accepted records' signed-off cleaned data to DEST with manifest.csv, manifest.json and sign-off.txt.",
+        description=(
+            "Copy the accepted records' signed-off cleaned data to DEST "
+            "with manifest.csv, manifest.json and sign-off.txt."
+        ),
     )
     p.add_argument("queue", metavar="QUEUE")
     p.add_argument("dest", metavar="DEST", help="new folder to create")
@@ -135,7 +183,9 @@ def cmd_init(args) -> int:
         if args.overrides:
             settings = apply_overrides(settings, args.overrides)
         cleaning = settings.to_dict()
-    settings = new_settings(cleaning=cleaning, kind=args.kind, units=args.units, claim_idle_minutes=args.claim_idle_minutes)
+    settings = new_settings(
+        cleaning=cleaning, kind=args.kind, units=args.units, claim_idle_minutes=args.claim_idle_minutes
+    )
     queue = Queue.init(args.queue, settings)
     print(f"queue ready: {inert(queue.root)} (settings in {inert(queue.paths.settings.name)})")
     return 0
@@ -152,11 +202,26 @@ def cmd_add(args) -> int:
     queue = _open(args)
     reviewer = _reviewer(args)
     if args.pair:
-        record_id = queue.add_pair(args.pair[0], args.pair[1], fs=args.fs, kind=args.kind, units=args.units, added_by=reviewer, allow_duplicates=args.allow_duplicates)
+        record_id = queue.add_pair(
+            args.pair[0],
+            args.pair[1],
+            fs=args.fs,
+            kind=args.kind,
+            units=args.units,
+            added_by=reviewer,
+            allow_duplicates=args.allow_duplicates,
+        )
         item = queue.record(record_id)
         print(f"added {record_id} (cleaned elsewhere; {item.current_run_id} assessed: {_flag_text(item)})")
         return 0
-    ids = queue.add_files(args.files, fs=args.fs, kind=args.kind, units=args.units, added_by=reviewer, allow_duplicates=args.allow_duplicates)
+    ids = queue.add_files(
+        args.files,
+        fs=args.fs,
+        kind=args.kind,
+        units=args.units,
+        added_by=reviewer,
+        allow_duplicates=args.allow_duplicates,
+    )
     for path, record_id in zip(args.files, ids):
         print(f"added {record_id}  <- {inert(path, 200)}")
     print(f"{len(ids)} record(s) waiting to be cleaned; run 'tracevet clean {inert(args.queue, 200)}'")
@@ -195,12 +260,18 @@ def cmd_clean(args) -> int:
     if not outcomes:
         print("nothing waiting to be cleaned")
         return 0
-    print(f"cleaned {len(made)} record(s): {flagged.get('fail', 0)} with fail flags, {flagged.get('warn', 0)} with warnings, {flagged.get('none', 0)} without flags")
+    print(
+        f"cleaned {len(made)} record(s): {flagged.get('fail', 0)} with fail flags, {flagged.get('warn', 0)} with "
+        f"warnings, {flagged.get('none', 0)} without flags"
+    )
     if failures:
         for outcome in failures:
             if bar is None:
                 print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
-        print(f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting", file=sys.stderr)
+        print(
+            f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting",
+            file=sys.stderr,
+        )
         return 1
     return 0
 
@@ -251,7 +322,10 @@ def cmd_status(args) -> int:
     print(f"queue {inert(queue.root)}: {len(records)} record(s)")
     for state in STATES:
         print(f"  {state:<10} {states.get(state, 0):>6}  {state.meaning}")
-    print(f"flags on the newest runs: {flags.get('fail', 0)} fail, {flags.get('warn', 0)} warn, {flags.get('none', 0)} none")
+    print(
+        f"flags on the newest runs: {flags.get('fail', 0)} fail, {flags.get('warn', 0)} warn, {flags.get('none', 0)} "
+        "none"
+    )
     if held:
         print("held:")
         for r in held:
@@ -289,7 +363,10 @@ def cmd_decide(args) -> int:
         print(json.dumps(entry.data))
         return 0
     word = DECISION_PAST[entry.decision]
-    line = f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} (log entry {entry.seq}, hash {entry.hash[:16]})"
+    line = (
+        f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} "
+        f"(log entry {entry.seq}, hash {entry.hash[:16]})"
+    )
     overridden = entry.get("overrides")
     if isinstance(overridden, dict):
         past = DECISION_PAST.get(str(overridden.get("decision")), inert(overridden.get("decision"), 20))
@@ -302,7 +379,10 @@ def cmd_claim(args) -> int:
     """``tracevet claim QUEUE RECORD``: hold a record from the command line (lapses by idle time)."""
     queue = _open(args)
     claim = queue.claim(args.record, _reviewer(args), bind_process=False)
-    print(f"{claim.record} is now held by {inert(claim.reviewer, 60)} (lapses after {queue.settings.claim_idle_minutes:g} min without activity)")
+    print(
+        f"{claim.record} is now held by {inert(claim.reviewer, 60)} (lapses after "
+        f"{queue.settings.claim_idle_minutes:g} min without activity)"
+    )
     return 0
 
 
@@ -328,10 +408,17 @@ def _entry_line(entry) -> str:
         what = f"{entry.event:<7} {inert(entry.note, 100)}"
     overridden = entry.get("overrides") if entry.event == "decision" else None
     if isinstance(overridden, dict):
-        what += f" (overrides entry {overridden.get('seq')}, {inert(overridden.get('decision'), 10)} by {inert(overridden.get('reviewer'), 40)})"
+        what += (
+            f" (overrides entry {overridden.get('seq')}, {inert(overridden.get('decision'), 10)}"
+            f" by {inert(overridden.get('reviewer'), 40)})"
+        )
     note = f'  "{inert(entry.note, 300)}"' if entry.event == "decision" and entry.note else ""
     digest = entry.get("settings_digest")
-    extra = f"  settings {digest[:12]}" if entry.event == "decision" and digest else ("  external run" if entry.event == "decision" else "")
+    extra = (
+        f"  settings {digest[:12]}"
+        if entry.event == "decision" and digest
+        else ("  external run" if entry.event == "decision" else "")
+    )
     return f"{entry.seq:>5}  {time}Z  {who:<12} {what}{extra}{note}"
 
 
@@ -352,14 +439,20 @@ def cmd_log(args) -> int:
             if errors:
                 print(f"tracevet: {len(errors)} problem(s) found", file=sys.stderr)
             else:
-                print(f"log verified: {head['entries']} entries, chain intact, every referenced file matches its checksum; newest entry hash {head['hash']}")
+                print(
+                    f"log verified: {head['entries']} entries, chain intact, every referenced file matches its "
+                    f"checksum; newest entry hash {head['hash']}"
+                )
         return 1 if errors else 0
     if args.repair:
         entry = queue.repair_log(_reviewer(args))
         if entry is None:
             print("nothing to repair: the log ends with a complete entry")
         else:
-            print(f"removed a torn last line ({entry.get('removed_bytes')} bytes, saved as {entry.get('saved_as')}); logged as entry {entry.seq}")
+            print(
+                f"removed a torn last line ({entry.get('removed_bytes')} bytes, saved as {entry.get('saved_as')}); "
+                f"logged as entry {entry.seq}"
+            )
         return 0
     record = None
     if args.record is not None:
@@ -384,7 +477,11 @@ def cmd_log(args) -> int:
 
     torn = log_mod.read_log(queue.paths.log).torn
     if torn is not None:
-        print(f"tracevet: the log ends with a torn line (line {torn.line}, {torn.size} bytes) from an interrupted write; 'tracevet log {inert(queue.root, 100)} --repair' removes it", file=sys.stderr)
+        print(
+            f"tracevet: the log ends with a torn line (line {torn.line}, {torn.size} bytes) from an interrupted "
+            f"write; 'tracevet log {inert(queue.root, 100)} --repair' removes it",
+            file=sys.stderr,
+        )
     return 0
 
 
@@ -395,5 +492,8 @@ def cmd_export(args) -> int:
 
     queue = _open(args)
     result = export_accepted(queue, args.dest, exported_by=_reviewer(args))
-    print(f"exported {result.count} accepted record(s) to {inert(result.dest)} (manifest.csv, manifest.json, sign-off.txt)")
+    print(
+        f"exported {result.count} accepted record(s) to {inert(result.dest)} (manifest.csv, manifest.json, "
+        "sign-off.txt)"
+    )
     return 0

@@ -59,7 +59,8 @@ def _uniform_rate(times: np.ndarray, source: str) -> float:
     if deviation[worst] > 0.25 * period:
         raise InputError(
             source,
-            f"time column is not uniformly spaced (data row {worst + 1} is {deviation[worst]:.6g} s off a uniform grid)",
+            f"time column is not uniformly spaced (data row {worst + 1} is {deviation[worst]:.6g} s off a uniform "
+            "grid)",
         )
     return 1.0 / period
 

@@ -24,7 +24,9 @@ SUPPORTED_WRITE = tuple(sorted(_WRITERS))
 def _suffix(path: Path, table: dict, verb: str) -> str:
     suffix = path.suffix.lower()
     if suffix not in table:
-        raise InputError(str(path), f"cannot {verb} '{suffix or 'no extension'}' files (supported: {', '.join(sorted(table))})")
+        raise InputError(
+            str(path), f"cannot {verb} '{suffix or 'no extension'}' files (supported: {', '.join(sorted(table))})"
+        )
     return suffix
 
 

@@ -100,7 +100,9 @@ def _queue_sink(record_id: str, fraction: float) -> None:
         pass
 
 
-def clean_one(root: str, record_id: str, settings: dict, sink: Callable[[str, float], None] | None = None) -> CleanOutcome:
+def clean_one(
+    root: str, record_id: str, settings: dict, sink: Callable[[str, float], None] | None = None
+) -> CleanOutcome:
     """Clean and assess one record of the queue at ``root`` (runs in a worker process).
 
     ``sink(record_id, fraction)`` receives progress within the record; in a

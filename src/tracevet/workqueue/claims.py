@@ -235,7 +235,9 @@ def take(
     return claim, previous, reason
 
 
-def check_holder(paths: QueuePaths, record_id: str, reviewer: str, idle_minutes: float) -> tuple[Claim | None, str | None]:
+def check_holder(
+    paths: QueuePaths, record_id: str, reviewer: str, idle_minutes: float
+) -> tuple[Claim | None, str | None]:
     """Raise ClaimedByOther if another reviewer holds a live claim on ``record_id``.
 
     Returns ``(stale_claim, reason)`` when another reviewer's claim may be
@@ -250,7 +252,9 @@ def check_holder(paths: QueuePaths, record_id: str, reviewer: str, idle_minutes:
     return current, reason
 
 
-def touch(paths: QueuePaths, record_id: str, reviewer: str, idle_minutes: float) -> tuple[Claim, Claim | None, str | None]:
+def touch(
+    paths: QueuePaths, record_id: str, reviewer: str, idle_minutes: float
+) -> tuple[Claim, Claim | None, str | None]:
     """Record activity on a claim held by ``reviewer`` (re-claiming it if it had lapsed)."""
     return take(paths, record_id, reviewer, idle_minutes)
 

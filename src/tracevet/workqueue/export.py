@@ -110,12 +110,17 @@ def export_accepted(queue, dest: str | os.PathLike, exported_by: str | None = No
         for item in accepted:
             entry = entries.get((item.last_decision or {}).get("seq"))
             if entry is None or entry.decision != "accept" or entry.record != item.id:
-                raise InputError(item.id, "its sign-off entry is missing from the log; run 'tracevet log QUEUE --verify'")
+                raise InputError(
+                    item.id, "its sign-off entry is missing from the log; run 'tracevet log QUEUE --verify'"
+                )
             info = run_info(queue.paths, item.id, entry.run)
             source = cleaned_path(queue.paths, item.id, info)
             actual = sha256_file(source)
             if actual != entry.get("cleaned_sha256") or actual != info.cleaned_sha256:
-                raise InputError(queue.paths.relative(source), "no longer matches the data signed off; nothing exported (run 'tracevet log QUEUE --verify')")
+                raise InputError(
+                    queue.paths.relative(source),
+                    "no longer matches the data signed off; nothing exported (run 'tracevet log QUEUE --verify')",
+                )
             name = f"{item.id}{source.suffix}"
             copied = copy_verified(source, staging / name)
             os.chmod(staging / name, 0o444)
@@ -134,7 +139,9 @@ def export_accepted(queue, dest: str | os.PathLike, exported_by: str | None = No
                 "decided_utc": entry.time,
                 "note": entry.note,
                 "worst_severity": entry.get("worst_severity"),
-                "flags": [{"id": f.get("id"), "severity": f.get("severity"), "message": f.get("message")} for f in flags],
+                "flags": [
+                    {"id": f.get("id"), "severity": f.get("severity"), "message": f.get("message")} for f in flags
+                ],
                 "log_seq": entry.seq,
                 "log_entry_hash": entry.hash,
             })
@@ -182,7 +189,8 @@ def _report(manifest: dict) -> str:
         "========================",
         "",
         f"Queue:            {inert(manifest['queue'])} (queue id {manifest['queue_id']})",
-        f"Exported:         {manifest['exported_utc'][:19].replace('T', ' ')} UTC by tracevet {manifest['tracevet_version']}"
+        f"Exported:         {manifest['exported_utc'][:19].replace('T', ' ')} UTC by tracevet "
+        f"{manifest['tracevet_version']}"
         + (f", {inert(manifest['exported_by'], 100)}" if manifest.get("exported_by") else ""),
         f"Decision log:     {head['entries']} entries, newest entry hash {head['hash']}",
         f"Accepted records: {len(manifest['records'])}",
@@ -193,14 +201,18 @@ def _report(manifest: dict) -> str:
         "control characters made visible.",
     ]
     for row in manifest["records"]:
-        origin = "cleaned by tracevet" if row["origin"] == "tracevet" else "cleaned outside tracevet (no tracevet settings)"
+        origin = (
+            "cleaned by tracevet" if row["origin"] == "tracevet" else "cleaned outside tracevet (no tracevet settings)"
+        )
         flags = row["flags"]
         flag_text = "none" if not flags else "; ".join(f"{f['severity']} {inert(f['id'], 40)}" for f in flags)
         lines += [
             "",
             f"{row['record']}  (added from {inert(row['source_name'], 200)})",
-            f"  run          {row['run']}, {origin}" + (f", settings digest {row['settings_digest']}" if row["settings_digest"] else ""),
-            f"  signed off   {str(row['decided_utc'])[:19].replace('T', ' ')} UTC by {inert(row['reviewer'], 100)} (log entry {row['log_seq']})",
+            f"  run          {row['run']}, {origin}"
+            + (f", settings digest {row['settings_digest']}" if row["settings_digest"] else ""),
+            f"  signed off   {str(row['decided_utc'])[:19].replace('T', ' ')} UTC by {inert(row['reviewer'], 100)} "
+            f"(log entry {row['log_seq']})",
             f"  note         {inert(row['note']) or '(none)'}",
             f"  flags        {flag_text}",
             f"  original     sha256 {row['original_sha256']}",

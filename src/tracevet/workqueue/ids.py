@@ -102,7 +102,9 @@ def check_record_id(text: object, source: str = "record") -> str:
     before it is used to build a path.
     """
     if not is_record_id(text):
-        raise InputError(source, f"{str(text)[:80]!r} is not a record id (letters, digits, '.', '_', '-'; see 'tracevet status')")
+        raise InputError(
+            source, f"{str(text)[:80]!r} is not a record id (letters, digits, '.', '_', '-'; see 'tracevet status')"
+        )
     return str(text)
 
 

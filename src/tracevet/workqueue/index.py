@@ -134,7 +134,11 @@ class Index:
             raw = paths.index.read_bytes()
             snapshot_bytes = len(raw)
             data = json.loads(raw)
-            if not isinstance(data, dict) or data.get("version") != INDEX_VERSION or not isinstance(data.get("records"), dict):
+            if (
+                not isinstance(data, dict)
+                or data.get("version") != INDEX_VERSION
+                or not isinstance(data.get("records"), dict)
+            ):
                 raise ValueError("unexpected structure")
             records = data["records"]
             log_size = int(data.get("log_size", 0))
@@ -362,8 +366,11 @@ def differences(stored: Index, fresh: Index) -> list[str]:
     """Record ids whose stored summary differs from the rebuilt one (or is missing/extra)."""
     ids = set(stored.records) | set(fresh.records)
     return sorted(
-        r for r in ids
-        if r not in stored.records or r not in fresh.records or comparable(stored.records[r]) != comparable(fresh.records[r])
+        r
+        for r in ids
+        if r not in stored.records
+        or r not in fresh.records
+        or comparable(stored.records[r]) != comparable(fresh.records[r])
     )
 
 

@@ -54,7 +54,10 @@ def held(path: Path, shared: bool = False) -> Iterator[None]:
             fd = os.open(str(path), os.O_RDWR | os.O_CREAT, 0o666)
         except PermissionError:
             if not shared:
-                raise InputError(str(path.parent), "no permission to change this queue (its files must be writable by your user or group)") from None
+                raise InputError(
+                    str(path.parent),
+                    "no permission to change this queue (its files must be writable by your user or group)",
+                ) from None
             fd = os.open(str(path), os.O_RDONLY)  # a reader without write permission still waits for writers
         try:
             fcntl.flock(fd, fcntl.LOCK_SH if shared else fcntl.LOCK_EX)

@@ -252,7 +252,9 @@ def append(paths: QueuePaths, bodies: Iterable[dict], repairer: str = "tracevet"
             bodies.insert(0, {
                 "event": "repair",
                 "reviewer": repairer,
-                "note": f"removed a torn last line ({len(torn_bytes)} bytes, line {line + 1}) left by an interrupted write",
+                "note": (
+                    f"removed a torn last line ({len(torn_bytes)} bytes, line {line + 1}) left by an interrupted write"
+                ),
                 "removed_bytes": len(torn_bytes),
                 "removed_sha256": sha256_bytes(torn_bytes),
                 "saved_as": saved,
@@ -362,26 +364,58 @@ def chain_problems(contents: LogContents, head: dict | None) -> list[tuple[int |
         except ValueError:
             actual = None
         if stored != actual:
-            problems.append((entry.line, record, "entry was changed after it was written (its hash does not match its contents)"))
+            problems.append(
+                (entry.line, record, "entry was changed after it was written (its hash does not match its contents)")
+            )
         if data.get("prev") != prev:
-            problems.append((entry.line, record, "entry does not follow the one before it (prev hash differs): an entry before it was removed or changed"))
+            problems.append(
+                (
+                    entry.line,
+                    record,
+                    "entry does not follow the one before it (prev hash differs): an entry before it was removed or "
+                    "changed",
+                )
+            )
         if data.get("seq") != expected_seq:
-            problems.append((entry.line, record, f"sequence number is {str(data.get('seq'))[:12]}, expected {expected_seq}: entries were removed or reordered"))
+            problems.append(
+                (
+                    entry.line,
+                    record,
+                    f"sequence number is {str(data.get('seq'))[:12]}, expected {expected_seq}: entries were removed "
+                    "or reordered",
+                )
+            )
         prev = stored if isinstance(stored, str) else ""
         expected_seq = (data.get("seq") if isinstance(data.get("seq"), int) else expected_seq) + 1
         if data.get("event") not in EVENTS:
             problems.append((entry.line, record, f"unknown event {str(data.get('event'))[:20]!r}"))
     if contents.torn is not None:
-        problems.append((contents.torn.line, None, f"torn last line ({contents.torn.size} bytes) from an interrupted write; 'tracevet log QUEUE --repair' removes it and keeps every complete entry"))
+        problems.append(
+            (
+                contents.torn.line,
+                None,
+                f"torn last line ({contents.torn.size} bytes) from an interrupted write; 'tracevet log QUEUE "
+                "--repair' removes it and keeps every complete entry",
+            )
+        )
     if head is not None:
         count = head.get("entries")
         by_seq = {e.data.get("seq"): e for e in contents.entries}
         if isinstance(count, int) and count > len(contents.entries):
-            problems.append((None, None, f"decisions.head says the log had {count} entries but it has {len(contents.entries)}: entries were cut off the end"))
+            problems.append(
+                (
+                    None,
+                    None,
+                    f"decisions.head says the log had {count} entries but it has {len(contents.entries)}: entries "
+                    "were cut off the end",
+                )
+            )
         elif isinstance(count, int) and count in by_seq and by_seq[count].data.get("hash") != head.get("hash"):
             problems.append((by_seq[count].line, None, "entry differs from the one recorded in decisions.head"))
     elif contents.entries:
-        problems.append((None, None, "decisions.head is missing or unreadable: cannot tell whether entries were cut off the end"))
+        problems.append(
+            (None, None, "decisions.head is missing or unreadable: cannot tell whether entries were cut off the end")
+        )
     return problems
 
 

@@ -250,7 +250,8 @@ class RecordSummary:
         if last is None:
             return None
         try:
-            if self.current_run_id and (not last.newest_run or run_number(self.current_run_id) > run_number(last.newest_run)):
+            newest_then = last.newest_run
+            if self.current_run_id and (not newest_then or run_number(self.current_run_id) > run_number(newest_then)):
                 return None
         except Exception:  # a damaged summary: treat the newest run as unreviewed, as base_state does
             return None
@@ -314,7 +315,9 @@ class Queue:
             if "queue.yaml" in leftovers:
                 raise InputError(str(path), "is already a tracevet queue")
             if leftovers:
-                raise InputError(str(path), f"folder is not empty ({len(leftovers)} entries); a queue needs an empty or new folder")
+                raise InputError(
+                    str(path), f"folder is not empty ({len(leftovers)} entries); a queue needs an empty or new folder"
+                )
         else:
             if not root.parent.is_dir():
                 raise InputError(str(path), "its parent folder does not exist")
@@ -363,7 +366,9 @@ class Queue:
         summary = summary_from_files(self.paths, record_id)
         stored = self._index().records.get(record_id)
         summary["last_decision"] = stored.get("last_decision") if stored else None
-        return _summary_to_record(summary, claims_mod.read_claim(self.paths, record_id), self.settings.claim_idle_minutes)
+        return _summary_to_record(
+            summary, claims_mod.read_claim(self.paths, record_id), self.settings.claim_idle_minutes
+        )
 
     def record_meta(self, record_id: str) -> dict:
         """The record's ``record.json`` (origin, checksums, metadata)."""
@@ -509,10 +514,15 @@ class Queue:
             raise InputError("--note", f"{run_id} of {record_id} has a fail flag: accepting it needs a note saying why")
         original_sha = sha256_file(original_path(self.paths, record_id, meta))
         if original_sha != meta.get("original_sha256"):
-            raise InputError(record_id, "the original no longer matches its checksum; nothing decided (see 'tracevet log --verify')")
+            raise InputError(
+                record_id, "the original no longer matches its checksum; nothing decided (see 'tracevet log --verify')"
+            )
         cleaned_sha = sha256_file(cleaned_path(self.paths, record_id, info))
         if cleaned_sha != info.cleaned_sha256:
-            raise InputError(f"{record_id}/{run_id}", "the cleaned data no longer match their checksum; nothing decided (see 'tracevet log --verify')")
+            raise InputError(
+                f"{record_id}/{run_id}",
+                "the cleaned data no longer match their checksum; nothing decided (see 'tracevet log --verify')",
+            )
         requested = None
         if decision == "rerun" and requested_settings is not None:
             requested = self._settings_object(requested_settings, "requested settings")
@@ -624,7 +634,15 @@ class Queue:
         assessment = assess(original, cleaned, limits=self.settings.limits())
         return self.store_run(record_id, cleaned, assessment, settings, made_by=reviewer)
 
-    def store_run(self, record_id: str, cleaned: Recording, assessment, settings, made_by: str | None = None, update_index: bool = True) -> str:
+    def store_run(
+        self,
+        record_id: str,
+        cleaned: Recording,
+        assessment,
+        settings,
+        made_by: str | None = None,
+        update_index: bool = True,
+    ) -> str:
         """Write an already computed run into the record (whole or not at all); return its id."""
         record_id = check_record_id(record_id)
         folder = work_folder(self.paths, "run")
@@ -694,7 +712,11 @@ class Queue:
                 staged.append(record)
                 checksum = record.meta["original_sha256"]
                 if checksum in known:
-                    raise InputError(str(path), f"already in the queue as record {known[checksum]} (same bytes); use --allow-duplicates to add it again")
+                    raise InputError(
+                        str(path),
+                        f"already in the queue as record {known[checksum]} (same bytes); use --allow-duplicates to "
+                        "add it again",
+                    )
                 known[checksum] = f"(this command, {path.name})"
             return self._commit_records(staged, added_by)
         except BaseException:
@@ -722,22 +744,37 @@ class Queue:
         # The cleaned file's own metadata (no queue defaults): a pair in different
         # units or of different kinds is refused, as 'tracevet assess' refuses it,
         # instead of being relabelled and flagged for a change it did not make.
-        done = read_recording(cleaned_path_, fs=fs if fs is not None else (raw.fs if cleaned_path_.suffix.lower() == ".npy" else None), kind=kind, units=units)
+        done = read_recording(
+            cleaned_path_,
+            fs=fs if fs is not None else (raw.fs if cleaned_path_.suffix.lower() == ".npy" else None),
+            kind=kind,
+            units=units,
+        )
         if done.units and raw.units and done.units != raw.units:
             raise InputError(str(cleaned_path_), f"in {done.units}, the original in {raw.units}")
         if "other" not in (done.kind, raw.kind) and done.kind != raw.kind:
             raise InputError(str(cleaned_path_), f"is {done.kind}, the original {raw.kind}")
         done = replace(done, kind=raw.kind, units=raw.units)
         if done.samples.shape != raw.samples.shape:
-            raise InputError(str(cleaned_path_), f"has {done.n_samples} samples x {done.n_channels} channels, the original {raw.n_samples} x {raw.n_channels}")
+            raise InputError(
+                str(cleaned_path_),
+                f"has {done.n_samples} samples x {done.n_channels} channels, the original {raw.n_samples} x "
+                f"{raw.n_channels}",
+            )
         if abs(done.fs - raw.fs) > 1e-6 * raw.fs:
-            raise InputError(str(cleaned_path_), f"sampling rate {done.fs:g} Hz differs from the original's {raw.fs:g} Hz")
+            raise InputError(
+                str(cleaned_path_), f"sampling rate {done.fs:g} Hz differs from the original's {raw.fs:g} Hz"
+            )
         assessment = assess(raw, done, limits=self.settings.limits())
         known = {} if allow_duplicates else self._existing_checksums()
         record = stage_original(self.paths, original_path_, raw, added_by, origin="pair")
         try:
             if record.meta["original_sha256"] in known:
-                raise InputError(str(original_path_), f"already in the queue as record {known[record.meta['original_sha256']]} (same bytes); use --allow-duplicates to add it again")
+                raise InputError(
+                    str(original_path_),
+                    f"already in the queue as record {known[record.meta['original_sha256']]} (same bytes); use "
+                    "--allow-duplicates to add it again",
+                )
             run_folder = record.folder / "runs" / "run-001"
             meta = build_run(run_folder, "", None, assessment, cleaned_source=cleaned_path_, made_by=added_by)
             meta["run"] = "run-001"
@@ -770,7 +807,9 @@ class Queue:
                     "source_name": record.meta["source_name"],
                     "origin": record.meta["origin"],
                     "original_sha256": record.meta["original_sha256"],
-                    "metadata": {k: record.meta.get(k) for k in ("fs", "n_samples", "channels", "kind", "units", "duration_s")},
+                    "metadata": {
+                        k: record.meta.get(k) for k in ("fs", "n_samples", "channels", "kind", "units", "duration_s")
+                    },
                 }
                 if run_meta is not None:
                     body["cleaned_source_name"] = record.meta.get("cleaned_source_name")

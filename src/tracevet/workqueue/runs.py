@@ -121,14 +121,15 @@ def build_run(
     if cleaned_source is not None:
         cleaned_name = f"cleaned{cleaned_source.suffix.lower()}"
         copy_verified(cleaned_source, folder / cleaned_name)
-        origin, settings_dict, digest = "external", None, None
+        origin, digest = "external", None
     else:
         cleaned_name = "cleaned.npz"
         write_durable(folder / cleaned_name, lambda handle: write_npz(cleaned, handle))
         origin = "tracevet"
-        settings_dict = jsonable(settings.to_dict())
         digest = settings.digest()
-        text = "# cleaning settings of this run (usable as a profile: tracevet denoise --profile)\n" + settings.to_yaml()
+        text = (
+            "# cleaning settings of this run (usable as a profile: tracevet denoise --profile)\n" + settings.to_yaml()
+        )
         write_durable(folder / RUN_SETTINGS, text.encode("utf-8"))
     assessment.save(folder)
     flags = flag_dicts(assessment)

@@ -161,7 +161,10 @@ def read_settings(path: Path) -> QueueSettings:
     if not isinstance(data, dict) or MARKER_KEY not in data:
         raise InputError(source, f"not a tracevet queue settings file (no '{MARKER_KEY}:' key)")
     if data[MARKER_KEY] != FORMAT_VERSION:
-        raise InputError(source, f"queue format {str(data[MARKER_KEY])[:20]!r} is not supported (this tracevet reads {FORMAT_VERSION})")
+        raise InputError(
+            source,
+            f"queue format {str(data[MARKER_KEY])[:20]!r} is not supported (this tracevet reads {FORMAT_VERSION})",
+        )
     unknown = sorted(str(k) for k in data if k not in _KNOWN_KEYS)
     if unknown:
         raise InputError(source, f"unknown setting(s): {', '.join(unknown)[:100]}")
@@ -184,6 +187,8 @@ def read_settings(path: Path) -> QueueSettings:
         flag_limits=limits,
         default_kind=_check_kind(defaults.get("kind", "ecg"), f"{source}: defaults.kind"),
         default_units=normalise_units(defaults.get("units"), f"{source}: defaults.units"),
-        claim_idle_minutes=_check_minutes(data.get("claim_idle_minutes", DEFAULT_IDLE_MINUTES), f"{source}: claim_idle_minutes"),
+        claim_idle_minutes=_check_minutes(
+            data.get("claim_idle_minutes", DEFAULT_IDLE_MINUTES), f"{source}: claim_idle_minutes"
+        ),
         source=source,
     )

@@ -109,7 +109,13 @@ def verify_queue(queue, rebuild_index: bool = True) -> list[Problem]:
             check()
         except Exception as exc:  # reported like every other problem, never fatal
             message = exc.one_line() if hasattr(exc, "one_line") else str(exc)[:160]
-            problems.append(Problem(paths.relative(paths.settings), f"unusable queue settings: {message}", file=paths.relative(paths.settings)))
+            problems.append(
+                Problem(
+                    paths.relative(paths.settings),
+                    f"unusable queue settings: {message}",
+                    file=paths.relative(paths.settings),
+                )
+            )
 
     record_ids = list_record_ids(paths)
     known_records: dict[str, dict] = {}
@@ -126,23 +132,60 @@ def verify_queue(queue, rebuild_index: bool = True) -> list[Problem]:
         where = _line_where(entry.line)
         meta = known_records.get(record_id)
         if meta is None:
-            problems.append(Problem(where, "names a record that is not in the queue (its folder is missing)", record=record_id, line=entry.line))
+            problems.append(
+                Problem(
+                    where,
+                    "names a record that is not in the queue (its folder is missing)",
+                    record=record_id,
+                    line=entry.line,
+                )
+            )
             continue
         original = original_path(paths, record_id, meta)
         if entry.get("original_sha256") != sums.of(original):
-            problems.append(Problem(where, f"original checksum in the entry does not match {paths.relative(original)}", record=record_id, line=entry.line, file=paths.relative(original)))
+            problems.append(
+                Problem(
+                    where,
+                    f"original checksum in the entry does not match {paths.relative(original)}",
+                    record=record_id,
+                    line=entry.line,
+                    file=paths.relative(original),
+                )
+            )
         if entry.event == "decision":
             run_id = entry.run
             if not isinstance(run_id, str) or run_id not in list_runs(paths, record_id):
-                problems.append(Problem(where, f"signs off run {str(run_id)[:20]!r}, which does not exist", record=record_id, line=entry.line))
+                problems.append(
+                    Problem(
+                        where,
+                        f"signs off run {str(run_id)[:20]!r}, which does not exist",
+                        record=record_id,
+                        line=entry.line,
+                    )
+                )
                 continue
             cleaned_name = entry.get("cleaned_file") or "cleaned.npz"
             cleaned = paths.run_dir(record_id, run_id) / str(cleaned_name)
             if entry.get("cleaned_sha256") != sums.of(cleaned):
-                problems.append(Problem(where, f"cleaned data signed off here no longer match: {paths.relative(cleaned)} was changed or replaced", record=record_id, line=entry.line, file=paths.relative(cleaned)))
+                problems.append(
+                    Problem(
+                        where,
+                        f"cleaned data signed off here no longer match: {paths.relative(cleaned)} was changed or "
+                        "replaced",
+                        record=record_id,
+                        line=entry.line,
+                        file=paths.relative(cleaned),
+                    )
+                )
     for record_id in record_ids:
         if record_id in known_records and record_id not in added:
-            problems.append(Problem(paths.relative(paths.record_dir(record_id)), "record folder has no 'add' entry in the log (copied in by hand?)", record=record_id))
+            problems.append(
+                Problem(
+                    paths.relative(paths.record_dir(record_id)),
+                    "record folder has no 'add' entry in the log (copied in by hand?)",
+                    record=record_id,
+                )
+            )
 
     if rebuild_index:
         problems.extend(_check_index(queue))
@@ -155,34 +198,81 @@ def _check_record(paths, record_id: str, sums: _Sums, known: dict) -> list[Probl
         meta = read_meta(paths, record_id)
         original = original_path(paths, record_id, meta)
     except Exception as exc:
-        return [Problem(paths.relative(paths.record_meta(record_id)), f"unreadable record metadata ({str(exc)[:80]})", record=record_id, file=paths.relative(paths.record_meta(record_id)))]
+        return [
+            Problem(
+                paths.relative(paths.record_meta(record_id)),
+                f"unreadable record metadata ({str(exc)[:80]})",
+                record=record_id,
+                file=paths.relative(paths.record_meta(record_id)),
+            )
+        ]
     known[record_id] = meta
     actual = sums.of(original)
     if actual is None:
-        problems.append(Problem(paths.relative(original), "original file is missing", record=record_id, file=paths.relative(original)))
+        problems.append(
+            Problem(
+                paths.relative(original), "original file is missing", record=record_id, file=paths.relative(original)
+            )
+        )
     elif actual != meta.get("original_sha256"):
-        problems.append(Problem(paths.relative(original), "original file does not match its checksum in record.json", record=record_id, file=paths.relative(original)))
+        problems.append(
+            Problem(
+                paths.relative(original),
+                "original file does not match its checksum in record.json",
+                record=record_id,
+                file=paths.relative(original),
+            )
+        )
     for run_id in list_runs(paths, record_id):
         folder = paths.run_dir(record_id, run_id)
         try:
             run = read_run_meta(paths, record_id, run_id)
         except Exception as exc:
-            problems.append(Problem(paths.relative(folder / RUN_META), f"unreadable run metadata ({str(exc)[:80]})", record=record_id, file=paths.relative(folder / RUN_META)))
+            problems.append(
+                Problem(
+                    paths.relative(folder / RUN_META),
+                    f"unreadable run metadata ({str(exc)[:80]})",
+                    record=record_id,
+                    file=paths.relative(folder / RUN_META),
+                )
+            )
             continue
         files = run.get("files") if isinstance(run.get("files"), dict) else {}
         for name, expected in sorted(files.items()):
             target = folder / str(name)
             if "/" in str(name) or "\\" in str(name):
-                problems.append(Problem(paths.relative(folder / RUN_META), f"lists a file outside the run folder: {str(name)[:60]!r}", record=record_id))
+                problems.append(
+                    Problem(
+                        paths.relative(folder / RUN_META),
+                        f"lists a file outside the run folder: {str(name)[:60]!r}",
+                        record=record_id,
+                    )
+                )
                 continue
             got = sums.of(target)
             if got is None:
-                problems.append(Problem(paths.relative(target), "file is missing", record=record_id, file=paths.relative(target)))
+                problems.append(
+                    Problem(paths.relative(target), "file is missing", record=record_id, file=paths.relative(target))
+                )
             elif got != expected:
-                problems.append(Problem(paths.relative(target), "file does not match its checksum in run.json (changed or replaced)", record=record_id, file=paths.relative(target)))
+                problems.append(
+                    Problem(
+                        paths.relative(target),
+                        "file does not match its checksum in run.json (changed or replaced)",
+                        record=record_id,
+                        file=paths.relative(target),
+                    )
+                )
         for name in sorted(os.listdir(folder)):
             if name != RUN_META and name not in files:
-                problems.append(Problem(paths.relative(folder / name), "file not listed in run.json (added afterwards)", record=record_id, file=paths.relative(folder / name)))
+                problems.append(
+                    Problem(
+                        paths.relative(folder / name),
+                        "file not listed in run.json (added afterwards)",
+                        record=record_id,
+                        file=paths.relative(folder / name),
+                    )
+                )
         problems.extend(_check_digest(paths, record_id, run_id, run))
     return problems
 
@@ -216,10 +306,20 @@ def _check_index(queue) -> list[Problem]:
             fresh.write_snapshot(paths)
     problems = []
     if damaged:
-        problems.append(Problem("index", f"damaged ({'; '.join(damaged)[:120]}); rebuilt from the records and the log", repaired=True))
+        problems.append(
+            Problem(
+                "index", f"damaged ({'; '.join(damaged)[:120]}); rebuilt from the records and the log", repaired=True
+            )
+        )
     if changed:
         shown = ", ".join(changed[:5]) + (" ..." if len(changed) > 5 else "")
-        problems.append(Problem("index", f"out of date for {len(changed)} record(s) ({shown}); rebuilt from the records and the log", repaired=True))
+        problems.append(
+            Problem(
+                "index",
+                f"out of date for {len(changed)} record(s) ({shown}); rebuilt from the records and the log",
+                repaired=True,
+            )
+        )
     del unreadable  # unreadable records are reported by the record checks
     return problems
 
