@@ -61,12 +61,14 @@ def _apply_filters(buf: np.ndarray, fs: float, settings: CleaningSettings, block
     for sos, lowest in stages:
         overlap = filters.settle_samples(fs, lowest)
         blocks = plan_blocks(buf.shape[0], max(block_samples, 4 * overlap), overlap)
-        process_inplace(
-            buf,
-            blocks,
-            lambda seg, _b, sos=sos, lowest=lowest: filters.zero_phase(seg, sos, fs, lowest),
-            after_block=lambda i, n=len(blocks): report((i + 1) / n),
-        )
+
+        def stage(seg, _block, sos=sos, lowest=lowest):
+            return filters.zero_phase(seg, sos, fs, lowest)
+
+        def block_done(i, n=len(blocks)):
+            report((i + 1) / n)
+
+        process_inplace(buf, blocks, stage, after_block=block_done)
 
 
 

@@ -2,8 +2,9 @@
 
 Contract for scripts (keep stable): with ``--json`` exactly one JSON object on
 stdout, ``{"metrics": {...}, "flags": [{"id", "severity", "message", "value",
-"limit", "source", "where", "where_more", "beats_affected", "beats_measured"}, ...]}``; exit 0 when no flag is ``fail``, 1 when at least
-one is, 2 with one line on stderr for bad input or usage.
+"limit", "source", "where", "where_more", "beats_affected", "beats_measured"}, ...]}``;
+exit 0 when no flag is ``fail``, 1 when at least one is, 2 with one line on
+stderr for bad input or usage.
 """
 
 from __future__ import annotations

@@ -41,7 +41,8 @@ def _compact_choices(values) -> str:
         return ", ".join(str(v) for v in values)
     families: dict[str, list[str]] = {}
     for value in values:
-        families.setdefault(re.match(r"[a-z]+", value).group(0), []).append(value)
+        letters = re.match(r"[a-z]*", value)
+        families.setdefault(letters.group(0) if letters else value, []).append(value)
     parts = []
     for family in sorted(families):
         names = families[family]

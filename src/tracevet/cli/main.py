@@ -23,6 +23,7 @@ from tracevet.text import inert
 COMMAND_MODULES = (
     "denoise_cmd",
     "assess_cmd",
+    "suggest_cmd",
     "queue_cmd",
     "review_cmd",
     "demo_cmd",

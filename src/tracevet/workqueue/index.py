@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import json
 import os
+from typing import Any
 
 
 from tracevet.recording.atomic import write_text_atomic
@@ -54,7 +55,7 @@ SENT_BACK = RecordState.SENT_BACK
 def summary_from_files(paths: QueuePaths, record_id: str, last_decision: dict | None = None) -> dict:
     """Build a record's summary from ``record.json`` and its runs' ``run.json``."""
     meta = read_meta(paths, record_id)
-    summary = {"id": record_id}
+    summary: dict[str, Any] = {"id": record_id}
     summary.update({k: meta.get(k) for k in _META_KEYS})
     apply_runs(paths, summary)
     summary["last_decision"] = last_decision
