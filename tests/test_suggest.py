@@ -137,14 +137,14 @@ def test_every_candidate_cleaning_is_the_denoise_cleaning(tmp_path, run_cli, mon
     clean_signal, noise = _noisy(seconds=12.0, fs=250.0)
     rec = _record(clean_signal + noise, 250.0)
     calls = []
-    real_clean = cleaning_pkg.clean
+    real_clean = cleaning_pkg.clean_with_report
 
     def spy(recording, settings, *args, **kwargs):
-        out = real_clean(recording, settings, *args, **kwargs)
+        out, report = real_clean(recording, settings, *args, **kwargs)
         calls.append((recording, settings, out))
-        return out
+        return out, report
 
-    monkeypatch.setattr(cleaning_pkg, "clean", spy)
+    monkeypatch.setattr(cleaning_pkg, "clean_with_report", spy)
     result = suggest(rec, threads=1)
     monkeypatch.undo()
     assert len(calls) == len(result.ranked) >= 15
@@ -167,15 +167,17 @@ def test_long_record_searched_on_windows_and_winner_verified_whole(monkeypatch):
     clean_signal, noise = _noisy(seconds=40.0, fs=250.0)
     rec = _record(clean_signal + noise, 250.0)
     seen = []
-    real_clean = cleaning_pkg.clean
-    monkeypatch.setattr(cleaning_pkg, "clean", lambda r, s, *a, **k: (seen.append(r.n_samples), real_clean(r, s, *a, **k))[1])
+    real_clean = cleaning_pkg.clean_with_report
+    monkeypatch.setattr(
+        cleaning_pkg, "clean_with_report", lambda r, s, *a, **k: (seen.append(r.n_samples), real_clean(r, s, *a, **k))[1]
+    )
     result = suggest(rec, flagged_stretches_s=[(13.0, 14.0)], threads=2)
     assert len(result.windows_s) == 4
     assert result.best.scope == "whole record" and result.ranked[0].scope == "sampled windows"
     full = [n for n in seen if n == rec.n_samples]
     assert 1 <= len(full) <= search_mod.FULL_RUNS_MAX  # only the winner (and fallbacks) on the whole record
     assert max(n for n in seen if n != rec.n_samples) <= int(10.0 * 250)
-    np.testing.assert_array_equal(result.cleaned.samples, real_clean(rec, result.best.settings).samples)
+    np.testing.assert_array_equal(result.cleaned.samples, real_clean(rec, result.best.settings)[0].samples)
     assert "sampled windows" in result.searched_on
 
 

@@ -40,6 +40,10 @@ def profile_text(suggestion, input_name: str) -> str:
     for flag in best.flags:
         lines += _comment(f"  {flag.severity} {flag.id}: {inert(flag.message, 300)}")
     lines += _comment(f"changed from the base settings: {best.change}")
+    report = getattr(suggestion, "report", None)
+    if report is not None:
+        for line in report.lines():
+            lines += _comment(f"on this record: {inert(line, 300)}")
     lines += _comment(f"why: {suggestion.reason}")
     for i, other in enumerate(suggestion.runners_up, start=2):
         lines += _comment(f"#{i}: {other.change} ({other.flags_text()}; {other.measures_text()}; on {other.scope})")

@@ -226,9 +226,12 @@ class Suggestion:
     base, current : CandidateResult or None
         The base settings' and the current run's settings' results.
     cleaned : Recording
-        The whole record cleaned with ``best.settings`` (``tracevet.cleaning.clean``).
+        The whole record cleaned with ``best.settings`` (``tracevet.cleaning.clean_with_report``).
     assessment : Assessment
         The full assessment of ``cleaned``.
+    report : CleaningReport
+        What the cleaning applied (``report.settings``: ``mains: auto`` resolved); a queue
+        run records these settings.
     candidate_set_digest : str
         See :func:`candidate_set_digest`.
     windows_s : list of (start, end)
@@ -244,6 +247,7 @@ class Suggestion:
     current: CandidateResult | None
     cleaned: object
     assessment: object
+    report: object
     candidate_set_digest: str
     windows_s: list
     reason: str

@@ -1,7 +1,7 @@
 """The suggestion search: clean and assess candidate settings, rank them, verify the winner.
 
-Every candidate is cleaned by :func:`tracevet.cleaning.clean`, the function
-``tracevet denoise`` runs, with nothing changed: a candidate's cleaning is
+Every candidate is cleaned by :func:`tracevet.cleaning.clean_with_report`, the
+function ``tracevet denoise`` runs, with nothing changed: a candidate's cleaning is
 exactly what ``denoise`` with the same settings gives for the same samples.
 The assessment is :func:`tracevet.assessment.assess` with the queue's or the
 default limits.
@@ -247,15 +247,16 @@ class _Evaluator:
         assessed (``screened``).
         """
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
         change = cand.describe_change(settings, self.base)
         per_channel: list[list[noise_mod.NoiseEstimate]] = [[] for _ in range(self.recording.n_channels)]
         pairs = []
+        report = None
         try:
             for w in self.windows:
                 segment = self._segment(w.read_start, w.read_stop)
-                cleaned = clean(segment, settings)
+                cleaned, report = clean_with_report(segment, settings)
                 core_o = self._segment(w.start, w.stop)
                 lo = w.start - w.read_start
                 core_c = cleaned if self.whole else core_o.with_samples(cleaned.samples[lo : lo + (w.stop - w.start)])
@@ -286,7 +287,7 @@ class _Evaluator:
         for core_o, core_c in pairs:
             result = assess(core_o, core_c, limits=self.limits, detector=self.cache)
             if self.whole:
-                kept = (core_c, result)
+                kept = (core_c, result, report)
             flag_lists.append(result.flags)
             metric_dicts.append(result.metrics)
         shapes = [s for s in (_shape_change(m) for m in metric_dicts) if s is not None]
@@ -296,11 +297,11 @@ class _Evaluator:
         return outcome, kept
 
     def full(self, settings: CleaningSettings, roles: tuple, progress=None):
-        """Clean and assess ``settings`` on the whole record: (result, cleaned, assessment)."""
+        """Clean and assess ``settings`` on the whole record: (result, cleaned, assessment, cleaning report)."""
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
-        cleaned = clean(self.recording, settings, progress=progress)
+        cleaned, report = clean_with_report(self.recording, settings, progress=progress)
         result = assess(self.recording, cleaned, limits=self.limits, detector=self.cache)
         channel_db = []
         for c in range(self.recording.n_channels):
@@ -318,7 +319,7 @@ class _Evaluator:
             roles=roles,
             n_changes=cand.count_changes(settings, self.base),
         )
-        return outcome, cleaned, result
+        return outcome, cleaned, result, report
 
 
 def suggest(
@@ -440,7 +441,7 @@ def suggest(
         raise InputError(recording.source, f"no candidate settings can clean this record ({problem})")
     if evaluator.whole:
         chosen = usable[0]
-        cleaned, assessment = evaluator.kept[chosen.settings.digest()]
+        cleaned, assessment, cleaning_report = evaluator.kept[chosen.settings.digest()]
         final = chosen
     else:
         finals = []
@@ -453,11 +454,10 @@ def suggest(
                 check()
                 report(search_share + (1 - search_share) * (i + 0.8 * fraction) / len(tries), "cleaning the whole record")
 
-            outcome, cleaned_i, assessment_i = evaluator.full(chosen.settings, chosen.roles, progress=clean_progress)
-            finals.append((outcome, cleaned_i, assessment_i))
-            if rank_key(outcome)[:4] <= rank_key(chosen)[:4]:
+            finals.append(evaluator.full(chosen.settings, chosen.roles, progress=clean_progress))
+            if rank_key(finals[-1][0])[:4] <= rank_key(chosen)[:4]:
                 break
-        final, cleaned, assessment = min(finals, key=lambda item: rank_key(item[0]))
+        final, cleaned, assessment, cleaning_report = min(finals, key=lambda item: rank_key(item[0]))
     others = [c for c in ranked if c.error is None and not c.screened and c.settings != final.settings]
     windows_s = [(w.start / recording.fs, w.stop / recording.fs) for w in windows]
     report(1.0, "done")
@@ -469,6 +469,7 @@ def suggest(
         current=current_result,
         cleaned=cleaned,
         assessment=assessment,
+        report=cleaning_report,
         candidate_set_digest=candidate_set_digest(evaluator.order, windows_s),
         windows_s=windows_s,
         reason=explain(final, ranked, current_result),

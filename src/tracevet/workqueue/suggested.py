@@ -71,6 +71,7 @@ class SuggestResult:
     cleaned: object = None
     assessment: object = None
     settings: dict | None = None
+    report: object = None
     summary: dict | None = None
     skipped: str | None = None
     input_sha256: str | None = None
@@ -144,13 +145,13 @@ def suggest_record(task: SuggestTask) -> SuggestResult:
         except NoBeats:
             result.skipped = NO_BEATS
             return result
-        best = found.best.settings
-        if current is not None and current.digest() == best.digest():
+        best = found.report.settings  # as applied (mains: auto resolved), as every run records them
+        if current is not None and current.digest() in (best.digest(), found.best.settings.digest()):
             result.skipped = f"the settings of {task.newest_run} are already the best candidate"
         elif severity_counts(found.best.flags) > severity_counts(task.newest_flags):
             result.skipped = f"no candidate did better than {task.newest_run} ({found.best.flags_text()})"
         else:
-            result.cleaned, result.assessment = found.cleaned, found.assessment
+            result.cleaned, result.assessment, result.report = found.cleaned, found.assessment, found.report
             result.settings, result.summary = best.to_dict(), found.summary()
     except TracevetError as exc:
         result.error = exc.one_line()
@@ -226,7 +227,7 @@ def _store(queue, task: SuggestTask, result, error: str | None, versions: dict) 
         }
         run_id = queue.store_run(
             record_id, result.cleaned, result.assessment, settings, update_index=False,
-            batch_token=task.record.token, extra=extra,
+            batch_token=task.record.token, extra=extra, report=result.report,
         )
         return SuggestOutcome(record_id, run_id, result.assessment.worst_severity, len(result.assessment.flags))
     except TracevetError as exc:
