@@ -27,6 +27,7 @@ CAUTION = (
 COMMAND_MODULES = (
     "denoise_cmd",
     "assess_cmd",
+    "suggest_cmd",
     "queue_cmd",
     "review_cmd",
     "demo_cmd",

@@ -73,7 +73,7 @@ def register(subparsers) -> None:
         description="Clean and assess every record waiting to be cleaned or sent back for a re-run; resumable.",
     )
     p.add_argument("queue", metavar="QUEUE")
-    p.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
+    p.add_argument("--workers", type=int, default=2, help="worker processes on this machine (default 2)")
     p.add_argument(
         "--set",
         dest="overrides",
@@ -81,6 +81,23 @@ def register(subparsers) -> None:
         default=[],
         metavar="KEY=VALUE",
         help="change a cleaning setting for this batch",
+    )
+    p.add_argument(
+        "--cluster",
+        metavar="ADDRESS",
+        help="send the work to this Dask scheduler (tcp://HOST:PORT or tls://HOST:PORT; default $TRACEVET_CLUSTER, "
+        "else the queue's 'cluster:' setting; needs tracevet[cluster]; see docs/cluster.md)",
+    )
+    p.add_argument(
+        "--local",
+        action="store_true",
+        help="use this machine's processes even if $TRACEVET_CLUSTER or the queue names a cluster",
+    )
+    p.add_argument(
+        "--shared-filesystem",
+        action="store_true",
+        help="with a cluster: workers read the originals at this queue's path (checked by SHA-256) "
+        "instead of receiving their bytes",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_clean)
@@ -243,31 +260,49 @@ def _flag_text(item) -> str:
 # --------------------------------------------------------------------- clean
 def cmd_clean(args) -> int:
     """``tracevet clean QUEUE``: clean every waiting record with a progress bar."""
+    from dataclasses import replace
+
     from tracevet.cli.progress import ProgressBar
     from tracevet.workqueue.batch import clean_waiting
+    from tracevet.workqueue.cluster import choose_cluster
 
+    if args.local and args.cluster:
+        from tracevet.cli.main import UsageError
+
+        raise UsageError("tracevet clean: give either --cluster ADDRESS or --local, not both")
     queue = _open(args)
+    cluster = choose_cluster(args.cluster, queue.settings.cluster, queue.settings.source, local=args.local)
+    if cluster is not None and args.shared_filesystem:
+        cluster = replace(cluster, shared_filesystem=True)
     bar = None if args.quiet else ProgressBar("cleaning")
     failures = []
+    retries = finished = 0
 
     def progress(done, total, outcome):
-        if outcome is not None and outcome.error:
-            failures.append(outcome)
-            if bar:
-                bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
+        nonlocal retries, finished
+        if outcome is not None:
+            finished += 1
+            retries += outcome.retries
+            if outcome.error:
+                failures.append(outcome)
+                if bar:
+                    bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
         if bar and total:
-            bar.update(done, total)
+            bar.update(done, total, note=bar.rate_text(finished, retries))
 
-    outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress)
+    outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress, cluster=cluster)
     made = [o for o in outcomes if o.run_id]
     flagged = Counter(o.worst_severity or "none" for o in made)
     if not outcomes:
         print("nothing waiting to be cleaned")
         return 0
+    where = f" on {inert(cluster.address, 80)}" if cluster is not None else ""
     print(
-        f"cleaned {len(made)} record(s): {flagged.get('fail', 0)} with fail flags, {flagged.get('warn', 0)} with "
-        f"warnings, {flagged.get('none', 0)} without flags"
+        f"cleaned {len(made)} record(s){where}: {flagged.get('fail', 0)} with fail flags, "
+        f"{flagged.get('warn', 0)} with warnings, {flagged.get('none', 0)} without flags"
     )
+    if retries:
+        print(f"{retries} task(s) retried (a worker died or a task failed and was run again)")
     if failures:
         for outcome in failures:
             if bar is None:

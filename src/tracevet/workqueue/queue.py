@@ -53,6 +53,7 @@ from tracevet.workqueue.runs import (
     load_assessment,
     load_cleaned,
     run_info,
+    run_with_token,
     write_run_meta,
 )
 from tracevet.workqueue.settings import QueueSettings, new_settings, read_settings
@@ -486,12 +487,25 @@ class Queue:
         settings,
         made_by: str | None = None,
         update_index: bool = True,
+        batch_token: str | None = None,
+        extra: dict | None = None,
     ) -> str:
-        """Write an already computed run into the record (whole or not at all); return its id."""
+        """Write an already computed run into the record (whole or not at all); return its id.
+
+        With ``batch_token``, storing is idempotent: if a run of this record
+        already carries the token (run.json ``batch``), its id is returned and
+        nothing is written, so a retried task never leaves two runs.
+        ``extra`` adds keys to run.json (worker, software versions).
+        """
         record_id = check_record_id(record_id)
+        if batch_token is not None:
+            existing = run_with_token(self.paths, record_id, batch_token)
+            if existing is not None:
+                return existing
+            extra = dict(extra or {}, batch=batch_token)
         folder = work_folder(self.paths, "run")
         try:
-            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by)
+            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by, extra=extra)
             run_id = commit_run(self.paths, record_id, folder, meta)
         except BaseException:
             _remove_tree(folder)

@@ -110,12 +110,15 @@ def build_run(
     settings=None,
     cleaned_source: Path | None = None,
     made_by: str | None = None,
+    extra: dict | None = None,
 ) -> dict:
     """Write a run's files into the empty ``folder``; return its run.json contents (without the id).
 
     Give ``settings`` (a ``CleaningSettings``) and ``cleaned`` for a tracevet
     run, or ``cleaned_source`` (a file cleaned elsewhere, copied byte for
-    byte) for an external one.
+    byte) for an external one. ``extra`` adds keys to run.json (a batch's
+    token, the worker that cleaned it, its software versions); it never
+    replaces the keys written here.
     """
     folder.mkdir(parents=True, exist_ok=True)
     if cleaned_source is not None:
@@ -157,6 +160,8 @@ def build_run(
         "host": socket.gethostname(),
         "tracevet_version": __version__,
     }
+    for key, value in (extra or {}).items():
+        meta.setdefault(key, jsonable(value))
     if origin == "external":
         meta["note"] = EXTERNAL_NOTE
         meta["cleaned_source_name"] = source_name
@@ -205,6 +210,18 @@ def commit_run(paths: QueuePaths, record_id: str, staged: Path, meta: dict) -> s
                 if exc.errno not in (errno.EEXIST, errno.ENOTEMPTY):
                     raise
         number += 1
+
+
+def run_with_token(paths: QueuePaths, record_id: str, token: str) -> str | None:
+    """The run of a record made under batch token ``token``, if one was stored (newest runs first)."""
+    for run_id in reversed(list_runs(paths, record_id)):
+        try:
+            meta = json.loads((paths.run_dir(record_id, run_id) / RUN_META).read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue
+        if isinstance(meta, dict) and meta.get("batch") == token:
+            return run_id
+    return None
 
 
 def read_run_meta(paths: QueuePaths, record_id: str, run_id: str) -> dict:
