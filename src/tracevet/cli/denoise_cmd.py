@@ -18,6 +18,7 @@ import re
 import sys
 from pathlib import Path
 
+from tracevet.caution import CAUTION
 from tracevet.cleaning import (
     DEFAULT_SETTINGS,
     SETTING_CHOICES,
@@ -31,7 +32,6 @@ from tracevet.errors import InputError
 from tracevet.recording import KINDS, Recording, SUPPORTED_READ, SUPPORTED_WRITE, read_recording, write_recording
 from tracevet.text import inert
 
-CAUTION = "tracevet is not a medical device and does not diagnose."
 
 
 def _compact_choices(values) -> str:
