@@ -622,7 +622,7 @@ class Queue:
         another reviewer holds the record, and the run records who asked.
         """
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
         record_id = check_record_id(record_id)
         if reviewer is not None:
@@ -631,9 +631,9 @@ class Queue:
                 claims_mod.check_holder(self.paths, record_id, reviewer, self.settings.claim_idle_minutes)
         settings = self._settings_object(settings, "settings")
         original = self.load_original(record_id)
-        cleaned = clean(original, settings, progress=progress)
+        cleaned, report = clean_with_report(original, settings, progress=progress)
         assessment = assess(original, cleaned, limits=self.settings.limits())
-        return self.store_run(record_id, cleaned, assessment, settings, made_by=reviewer)
+        return self.store_run(record_id, cleaned, assessment, report.settings, made_by=reviewer, report=report)
 
     def store_run(
         self,
@@ -645,9 +645,12 @@ class Queue:
         update_index: bool = True,
         batch_token: str | None = None,
         extra: dict | None = None,
+        report=None,
     ) -> str:
         """Write an already computed run into the record (whole or not at all); return its id.
 
+        ``settings`` are those applied (``report.settings`` of
+        ``tracevet.cleaning.clean_with_report``); ``report`` adds what ``mains: auto`` found.
         With ``batch_token``, storing is idempotent: if a run of this record
         already carries the token (run.json ``batch``), its id is returned and
         nothing is written, so a retried task never leaves two runs.
@@ -661,7 +664,9 @@ class Queue:
             extra = dict(extra or {}, batch=batch_token)
         folder = work_folder(self.paths, "run")
         try:
-            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by, extra=extra)
+            meta = build_run(
+                folder, record_id, cleaned, assessment, settings, made_by=made_by, extra=extra, report=report
+            )
             run_id = commit_run(self.paths, record_id, folder, meta)
         except BaseException:
             _remove_tree(folder)
