@@ -13,7 +13,7 @@ import scipy.stats
 import tracevet.cleaning as cleaning_pkg
 from tracevet import synthetic as syn
 from tracevet.assessment.flags import Flag
-from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, clean, load_profile
+from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, load_profile
 from tracevet.recording import Recording, read_recording, write_recording
 from tracevet.suggestion import (
     NoBeats,
@@ -38,7 +38,9 @@ def _noisy(seconds=20.0, fs=250.0, muscle=0.05, seed=1):
 
 
 def _record(values, fs, name="rec"):
-    return Recording(np.asarray(values, dtype=np.float32).reshape(-1, 1), fs, ("chest",), units="mV", kind="ecg", source=name)
+    return Recording(
+        np.asarray(values, dtype=np.float32).reshape(-1, 1), fs, ("chest",), units="mV", kind="ecg", source=name
+    )
 
 
 # ----------------------------------------------------------------------------- rank agreement
@@ -100,7 +102,9 @@ def test_noise_removed_estimate_counts_lost_signal_against_the_cleaning():
 
 def _cand(flags=(), noise=5.0, shape=1.0, changes=1):
     made = [Flag(fid, sev, "m", 1.0, 0.5, "s", "c") for fid, sev in flags]
-    return CandidateResult(DEFAULT_SETTINGS, "x", flags=made, noise_removed_db=noise, shape_change_percent=shape, n_changes=changes)
+    return CandidateResult(
+        DEFAULT_SETTINGS, "x", flags=made, noise_removed_db=noise, shape_change_percent=shape, n_changes=changes
+    )
 
 
 def test_rank_order_fail_then_warn_then_noise_then_shape():
@@ -190,7 +194,14 @@ def test_aggressive_current_settings_get_a_suggestion_without_fail():
     rec = _record(clean_signal + noise, 250.0)
     current = apply_overrides(
         DEFAULT_SETTINGS,
-        ["transform=dwt", "wavelet=haar", "level=7", "rule=universal", "threshold_mode=hard", "noise_estimate=per_level"],
+        [
+            "transform=dwt",
+            "wavelet=haar",
+            "level=7",
+            "rule=universal",
+            "threshold_mode=hard",
+            "noise_estimate=per_level",
+        ],
     )
     result = suggest(rec, current=current)
     assert result.current is not None and result.current.n_fail > 0

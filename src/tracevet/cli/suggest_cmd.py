@@ -92,7 +92,10 @@ def run(args: argparse.Namespace) -> int:
             write_recording(suggestion.cleaned, output)
             print(f"tracevet suggest: wrote the cleaned record to {inert(args.write, 200)}", file=sys.stderr)
         else:
-            print(f"tracevet suggest: nothing written to {inert(args.write, 200)} (no candidate without a fail flag)", file=sys.stderr)
+            print(
+                f"tracevet suggest: nothing written to {inert(args.write, 200)} (no candidate without a fail flag)",
+                file=sys.stderr,
+            )
     return 0 if suggestion.found else 1
 
 
@@ -116,11 +119,15 @@ def register(subparsers) -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     add_input_arguments(parser)
-    parser.add_argument("--profile", metavar="FILE", help="settings the search starts from (YAML profile; default: the defaults)")
+    parser.add_argument(
+        "--profile", metavar="FILE", help="settings the search starts from (YAML profile; default: the defaults)"
+    )
     parser.add_argument("--limits", metavar="FILE", help="flag limits (YAML), as for 'tracevet assess'")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of the profile")
     parser.add_argument(
-        "--write", metavar="OUTPUT", help=f"also write the record cleaned with the suggestion ({', '.join(SUPPORTED_WRITE)})"
+        "--write",
+        metavar="OUTPUT",
+        help=f"also write the record cleaned with the suggestion ({', '.join(SUPPORTED_WRITE)})",
     )
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.set_defaults(func=run)

@@ -38,6 +38,7 @@ can be compared with them.
 from __future__ import annotations
 
 from dataclasses import replace
+from functools import partial
 from typing import Callable, Iterator
 
 from tracevet.cleaning import SETTING_CHOICES, CleaningSettings
@@ -87,7 +88,7 @@ def dimensions(fs: float, base: CleaningSettings) -> list[Dimension]:
     def mains(s: CleaningSettings) -> list[CleaningSettings]:
         out: list[CleaningSettings] = []
         for value in _mains_values(fs):
-            out += _try(lambda value=value: replace(s, mains=value))
+            out += _try(partial(replace, s, mains=value))
         return out
 
     def baseline(s: CleaningSettings) -> list[CleaningSettings]:
@@ -95,11 +96,16 @@ def dimensions(fs: float, base: CleaningSettings) -> list[Dimension]:
         for method in SETTING_CHOICES["baseline"]:
             if method == "off":
                 continue
-            out += _try(lambda method=method: replace(s, baseline=method, baseline_cutoff_hz=base.baseline_cutoff_hz))
+            out += _try(partial(replace, s, baseline=method, baseline_cutoff_hz=base.baseline_cutoff_hz))
         for cutoff in BASELINE_CUTOFFS_HZ:
+<<<<<<< HEAD
             out += _try(lambda cutoff=cutoff: replace(s, baseline="butterworth", baseline_cutoff_hz=cutoff))
         if base.baseline == "off":
             out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
+=======
+            out += _try(partial(replace, s, baseline="butterworth", baseline_cutoff_hz=cutoff))
+        out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
+>>>>>>> main
         return out
 
     def rule_mode(s: CleaningSettings) -> list[CleaningSettings]:

@@ -6,6 +6,7 @@ import hashlib
 import json
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 from tracevet.cleaning import CleaningSettings
 
@@ -98,7 +99,9 @@ class CandidateResult:
 
     def measures_text(self) -> str:
         """Noise removed and beat shape change, in words."""
-        noise = "noise removed n/a" if self.noise_removed_db is None else f"noise removed {self.noise_removed_db:.1f} dB"
+        noise = (
+            "noise removed n/a" if self.noise_removed_db is None else f"noise removed {self.noise_removed_db:.1f} dB"
+        )
         shape = "" if self.shape_change_percent is None else f", beat shape change {self.shape_change_percent:.1f} %"
         return noise + shape
 
@@ -160,8 +163,16 @@ def candidate_set_digest(candidates: list[CandidateResult], windows: list[tuple[
 
 
 def explain(best: CandidateResult, ranked: list[CandidateResult], current: CandidateResult | None) -> str:
+<<<<<<< HEAD
     """Why ``best`` came first, in words: the ranking step that decided, against the next candidate and the current settings."""
     usable = [c for c in ranked if c.error is None and not c.screened]
+=======
+    """Why ``best`` came first, in words.
+
+    The ranking step that decided, against the next candidate and the current settings.
+    """
+    usable = [c for c in ranked if c.error is None]
+>>>>>>> main
     others = [c for c in usable if c is not best and c.settings != best.settings]
     sentences = []
     if best.n_fail:
@@ -169,7 +180,8 @@ def explain(best: CandidateResult, ranked: list[CandidateResult], current: Candi
     elif best.n_warn:
         clean = sum(1 for c in usable if not c.flags)
         sentences.append(
-            f"No candidate was free of warnings; this one has no fail flag and the fewest warnings ({best.flags_text()})."
+            "No candidate was free of warnings; this one has no fail flag and the fewest warnings "
+            f"({best.flags_text()})."
             if clean == 0
             else f"It has {best.flags_text()}."
         )
@@ -207,7 +219,10 @@ def _deciding_step(best: CandidateResult, nxt: CandidateResult) -> str:
             f"({sa:.{digits}f} % against {sb:.{digits}f} %)"
         )
     if best.n_changes != nxt.n_changes:
-        return "both are equal on flags, noise removed and shape change; the chosen settings change fewer settings from the base"
+        return (
+            "both are equal on flags, noise removed and shape change; "
+            "the chosen settings change fewer settings from the base"
+        )
     return "the two are equal on every ranking step; the earlier in the search order is kept"
 
 
@@ -245,9 +260,14 @@ class Suggestion:
     ranked: list
     base: CandidateResult | None
     current: CandidateResult | None
+<<<<<<< HEAD
     cleaned: object
     assessment: object
     report: object
+=======
+    cleaned: Any
+    assessment: Any
+>>>>>>> main
     candidate_set_digest: str
     windows_s: list
     reason: str
@@ -260,7 +280,12 @@ class Suggestion:
     @property
     def searched_on(self) -> str:
         """``the whole record`` or ``3 sampled windows (60 s of 86400 s)``."""
-        if len(self.windows_s) == 1 and self.best.scope == "whole record" and self.ranked and self.ranked[-1].scope == "whole record":
+        if (
+            len(self.windows_s) == 1
+            and self.best.scope == "whole record"
+            and self.ranked
+            and self.ranked[-1].scope == "whole record"
+        ):
             return "the whole record"
         total = sum(b - a for a, b in self.windows_s)
         return f"{len(self.windows_s)} sampled windows ({total:.0f} s)"

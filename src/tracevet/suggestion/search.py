@@ -30,7 +30,7 @@ from __future__ import annotations
 import hashlib
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
-from typing import Callable
+from typing import Any, Callable
 
 import numpy as np
 
@@ -133,7 +133,7 @@ class PeakCache:
     @staticmethod
     def _key(signal: np.ndarray, fs: float) -> tuple:
         data = np.ascontiguousarray(signal)
-        digest = hashlib.blake2b(data.view(np.uint8), digest_size=16).digest()
+        digest = hashlib.blake2b(data.view(np.uint8).data, digest_size=16).digest()
         return (data.shape[0], str(data.dtype), float(fs), digest)
 
     def put(self, signal: np.ndarray, fs: float, peaks: np.ndarray) -> None:
@@ -158,13 +158,16 @@ def _cancel_check(cancel) -> Callable[[], bool]:
 
 def _merge_flags(flag_lists: list[list]) -> list:
     """The worst of each (flag, channel) over windows; fail first."""
-    worst: dict[tuple[str, str], object] = {}
+    worst: dict[tuple[str, str], Any] = {}
     order = {"fail": 2, "warn": 1}
     for flags in flag_lists:
         for f in flags:
             key = (f.id, f.channel)
             old = worst.get(key)
-            if old is None or (order.get(f.severity, 0), f.value or 0.0) > (order.get(old.severity, 0), old.value or 0.0):
+            if old is None or (order.get(f.severity, 0), f.value or 0.0) > (
+                order.get(old.severity, 0),
+                old.value or 0.0,
+            ):
                 worst[key] = f
     return sorted(worst.values(), key=lambda f: (0 if f.severity == "fail" else 1, f.id, f.channel))
 
@@ -181,7 +184,7 @@ def _key_metrics(metric_dicts: list[dict]) -> dict:
     for name in metric_dicts[0]:
         if name.split("@")[0] not in KEY_METRICS:
             continue
-        values = [m.get(name) for m in metric_dicts if m.get(name) is not None]
+        values = [v for m in metric_dicts if (v := m.get(name)) is not None]
         out[name] = float(np.mean(values)) if values else None
     return out
 
@@ -189,7 +192,9 @@ def _key_metrics(metric_dicts: list[dict]) -> dict:
 class _Evaluator:
     """Cleans and assesses settings on the planned windows of one record."""
 
-    def __init__(self, recording: Recording, windows: list[Window], peaks: list[np.ndarray], cache: PeakCache, limits, base):
+    def __init__(
+        self, recording: Recording, windows: list[Window], peaks: list[np.ndarray], cache: PeakCache, limits, base
+    ):
         from tracevet.assessment import resolve_limits
 
         self.recording = recording
@@ -226,7 +231,9 @@ class _Evaluator:
         """Record a new result in evaluation order; keep the cleaned trace of the best few."""
         digest = outcome.settings.digest()
         if digest in self.done:
-            return self.known(outcome.settings, outcome.roles[0])
+            found = self.known(outcome.settings, outcome.roles[0])
+            assert found is not None  # its digest is in self.done
+            return found
         self.done[digest] = outcome
         self.order.append(outcome)
         if kept is not None:
@@ -269,9 +276,14 @@ class _Evaluator:
                     )
         except InputError as exc:  # e.g. a window or record too short for a level
             return CandidateResult(settings, change, scope=self.scope, roles=(role,), error=exc.problem), None
+<<<<<<< HEAD
         channel_db = [noise_mod.pooled_removed_db(estimates) for estimates in per_channel]
         channel_db = [v for v in channel_db if v is not None]
         noise_db = float(np.mean(channel_db)) if channel_db else None
+=======
+        channel_db = [v for estimates in per_channel if (v := noise_mod.pooled_removed_db(estimates)) is not None]
+        shapes = [s for s in (_shape_change(m) for m in metric_dicts) if s is not None]
+>>>>>>> main
         outcome = CandidateResult(
             settings=settings,
             change=change,
@@ -305,7 +317,9 @@ class _Evaluator:
         result = assess(self.recording, cleaned, limits=self.limits, detector=self.cache)
         channel_db = []
         for c in range(self.recording.n_channels):
-            est = noise_mod.estimate(self.recording.samples[:, c], cleaned.samples[:, c], self.peaks[c], self.recording.fs)
+            est = noise_mod.estimate(
+                self.recording.samples[:, c], cleaned.samples[:, c], self.peaks[c], self.recording.fs
+            )
             if est.removed_db is not None:
                 channel_db.append(est.removed_db)
         outcome = CandidateResult(
@@ -400,13 +414,20 @@ def suggest(
         for settings, role in items:
             digest = settings.digest()
             if evaluator.known(settings, role) is None and digest not in futures:
+<<<<<<< HEAD
                 futures[digest] = pool.submit(evaluator.run, settings, role, bar)
         results = []
+=======
+                futures[digest] = pool.submit(evaluator.run, settings, role)
+        results: list[CandidateResult] = []
+>>>>>>> main
         try:
             for settings, role in items:
                 future = futures.pop(settings.digest(), None)
                 if future is None:
-                    results.append(evaluator.known(settings, role))
+                    found = evaluator.known(settings, role)
+                    assert found is not None  # evaluated before, in this call or an earlier one
+                    results.append(found)
                     continue
                 results.append(evaluator.register(*future.result()))
                 report(
@@ -452,7 +473,9 @@ def suggest(
 
             def clean_progress(fraction: float, i=i) -> None:
                 check()
-                report(search_share + (1 - search_share) * (i + 0.8 * fraction) / len(tries), "cleaning the whole record")
+                report(
+                    search_share + (1 - search_share) * (i + 0.8 * fraction) / len(tries), "cleaning the whole record"
+                )
 
             finals.append(evaluator.full(chosen.settings, chosen.roles, progress=clean_progress))
             if rank_key(finals[-1][0])[:4] <= rank_key(chosen)[:4]:
