@@ -115,7 +115,8 @@ def labelled_sources(quick: bool):
 def labelled_part(quick: bool) -> bool:
     """SNR gains, flags against the default, and estimate-vs-truth ordering."""
     print("## Labelled noisy set (truth known)\n")
-    print("| source | default gain dB | suggestion gain dB | default flags | suggestion flags | suggestion | pairs agree | tau |")
+    print("| source | default gain dB | suggestion gain dB | default flags | suggestion flags | suggestion "
+          "| pairs agree | tau |")
     print("|---|---:|---:|---|---|---|---:|---:|")
     d_gains, s_gains, worse, more_flags, agree, compared, taus = [], [], 0, 0, 0, 0, []
     n = 0
@@ -141,14 +142,16 @@ def labelled_part(quick: bool) -> bool:
         more = len(s.best.flags) > len(default_flags)
         more_flags += more
         n += 1
-        print(f"| {src.name} | {d_gain:.2f} | {s_gain:.2f}{' **WORSE**' if s_gain < 0 else ''} | {flags_text(default_flags)} | "
+        worse_mark = " **WORSE**" if s_gain < 0 else ""
+        print(f"| {src.name} | {d_gain:.2f} | {s_gain:.2f}{worse_mark} | {flags_text(default_flags)} | "
               f"{flags_text(s.best.flags)}{' **MORE**' if more else ''} | {s.best.change} | {a}/{m} | {tau:.2f} |")
     print()
     share = agree / compared if compared else float("nan")
     print(f"- records: {n}; median SNR gain: default {statistics.median(d_gains):.2f} dB, "
           f"suggestion {statistics.median(s_gains):.2f} dB")
     print(f"- suggestion worse than its input: {worse}; more flags than the default run: {more_flags}")
-    print(f"- estimate vs truth: {agree}/{compared} candidate pairs ordered alike ({100 * share:.1f} %, plain pair count); "
+    print(f"- estimate vs truth: {agree}/{compared} candidate pairs ordered alike "
+          f"({100 * share:.1f} %, plain pair count); "
           f"median Kendall tau-b per record {statistics.median(taus):.2f}")
     print()
     return statistics.median(s_gains) >= statistics.median(d_gains) and worse == 0 and more_flags == 0 and share >= 0.8

@@ -13,7 +13,7 @@ import scipy.stats
 import tracevet.cleaning as cleaning_pkg
 from tracevet import synthetic as syn
 from tracevet.assessment.flags import Flag
-from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, load_profile
+from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, clean, load_profile
 from tracevet.recording import Recording, read_recording, write_recording
 from tracevet.suggestion import (
     NoBeats,
@@ -172,9 +172,11 @@ def test_long_record_searched_on_windows_and_winner_verified_whole(monkeypatch):
     rec = _record(clean_signal + noise, 250.0)
     seen = []
     real_clean = cleaning_pkg.clean_with_report
-    monkeypatch.setattr(
-        cleaning_pkg, "clean_with_report", lambda r, s, *a, **k: (seen.append(r.n_samples), real_clean(r, s, *a, **k))[1]
-    )
+    def counting(r, s, *a, **k):
+        seen.append(r.n_samples)
+        return real_clean(r, s, *a, **k)
+
+    monkeypatch.setattr(cleaning_pkg, "clean_with_report", counting)
     result = suggest(rec, flagged_stretches_s=[(13.0, 14.0)], threads=2)
     assert len(result.windows_s) == 4
     assert result.best.scope == "whole record" and result.ranked[0].scope == "sampled windows"

@@ -9,7 +9,9 @@ import numpy as np
 from tracevet import synthetic as syn
 from tracevet.recording import Recording, write_recording
 
-AGGRESSIVE = ["transform=dwt", "wavelet=haar", "level=7", "rule=universal", "threshold_mode=hard", "noise_estimate=per_level"]
+AGGRESSIVE = [
+    "transform=dwt", "wavelet=haar", "level=7", "rule=universal", "threshold_mode=hard", "noise_estimate=per_level",
+]
 
 
 def _queue(tmp_path, run_cli):

@@ -94,7 +94,8 @@ def register(subparsers) -> None:
     p.add_argument(
         "--suggest",
         action="store_true",
-        help="then, for each record whose newest run has flags, add a run made with suggested settings (docs/suggest.md)",
+        help="then, for each record whose newest run has flags, add a run made with suggested settings "
+        "(docs/suggest.md)",
     )
     p.set_defaults(func=cmd_clean)
 

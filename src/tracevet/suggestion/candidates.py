@@ -98,14 +98,9 @@ def dimensions(fs: float, base: CleaningSettings) -> list[Dimension]:
                 continue
             out += _try(partial(replace, s, baseline=method, baseline_cutoff_hz=base.baseline_cutoff_hz))
         for cutoff in BASELINE_CUTOFFS_HZ:
-<<<<<<< HEAD
-            out += _try(lambda cutoff=cutoff: replace(s, baseline="butterworth", baseline_cutoff_hz=cutoff))
+            out += _try(partial(replace, s, baseline="butterworth", baseline_cutoff_hz=cutoff))
         if base.baseline == "off":
             out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
-=======
-            out += _try(partial(replace, s, baseline="butterworth", baseline_cutoff_hz=cutoff))
-        out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
->>>>>>> main
         return out
 
     def rule_mode(s: CleaningSettings) -> list[CleaningSettings]:

@@ -163,16 +163,11 @@ def candidate_set_digest(candidates: list[CandidateResult], windows: list[tuple[
 
 
 def explain(best: CandidateResult, ranked: list[CandidateResult], current: CandidateResult | None) -> str:
-<<<<<<< HEAD
-    """Why ``best`` came first, in words: the ranking step that decided, against the next candidate and the current settings."""
-    usable = [c for c in ranked if c.error is None and not c.screened]
-=======
     """Why ``best`` came first, in words.
 
     The ranking step that decided, against the next candidate and the current settings.
     """
-    usable = [c for c in ranked if c.error is None]
->>>>>>> main
+    usable = [c for c in ranked if c.error is None and not c.screened]
     others = [c for c in usable if c is not best and c.settings != best.settings]
     sentences = []
     if best.n_fail:
@@ -260,14 +255,9 @@ class Suggestion:
     ranked: list
     base: CandidateResult | None
     current: CandidateResult | None
-<<<<<<< HEAD
-    cleaned: object
-    assessment: object
-    report: object
-=======
     cleaned: Any
     assessment: Any
->>>>>>> main
+    report: Any
     candidate_set_digest: str
     windows_s: list
     reason: str

@@ -276,14 +276,8 @@ class _Evaluator:
                     )
         except InputError as exc:  # e.g. a window or record too short for a level
             return CandidateResult(settings, change, scope=self.scope, roles=(role,), error=exc.problem), None
-<<<<<<< HEAD
-        channel_db = [noise_mod.pooled_removed_db(estimates) for estimates in per_channel]
-        channel_db = [v for v in channel_db if v is not None]
-        noise_db = float(np.mean(channel_db)) if channel_db else None
-=======
         channel_db = [v for estimates in per_channel if (v := noise_mod.pooled_removed_db(estimates)) is not None]
-        shapes = [s for s in (_shape_change(m) for m in metric_dicts) if s is not None]
->>>>>>> main
+        noise_db = float(np.mean(channel_db)) if channel_db else None
         outcome = CandidateResult(
             settings=settings,
             change=change,
@@ -405,7 +399,9 @@ def suggest(
     expected = cand.upper_bound(recording.fs, base)
     pool = ThreadPoolExecutor(max_workers=max(1, int(threads)), thread_name_prefix="tracevet-suggest")
 
-    def evaluate_all(items: list[tuple[CleaningSettings, str]], bar: CandidateResult | None = None) -> list[CandidateResult]:
+    def evaluate_all(
+        items: list[tuple[CleaningSettings, str]], bar: CandidateResult | None = None
+    ) -> list[CandidateResult]:
         """Evaluate settings (new ones on the pool), registered in the order given."""
         check()
         if bar is not None and (bar.flags or bar.screened or bar.noise_removed_db is None):
@@ -414,13 +410,8 @@ def suggest(
         for settings, role in items:
             digest = settings.digest()
             if evaluator.known(settings, role) is None and digest not in futures:
-<<<<<<< HEAD
                 futures[digest] = pool.submit(evaluator.run, settings, role, bar)
-        results = []
-=======
-                futures[digest] = pool.submit(evaluator.run, settings, role)
         results: list[CandidateResult] = []
->>>>>>> main
         try:
             for settings, role in items:
                 future = futures.pop(settings.digest(), None)

@@ -527,7 +527,7 @@ class Queue:
         requested = None
         if decision == "rerun" and requested_settings is not None:
             requested = self._settings_object(requested_settings, "requested settings")
-        body = {
+        body: dict[str, Any] = {
             "event": "decision",
             "record": record_id,
             "run": run_id,

@@ -25,7 +25,7 @@ import os
 import time
 import uuid
 from dataclasses import dataclass, field
-from typing import Callable
+from typing import Any, Callable
 
 from tracevet.errors import InputError, TracevetError
 from tracevet.text import inert
@@ -68,10 +68,10 @@ class SuggestResult:
 
     record_id: str
     token: str
-    cleaned: object = None
-    assessment: object = None
+    cleaned: Any = None
+    assessment: Any = None
     settings: dict | None = None
-    report: object = None
+    report: Any = None
     summary: dict | None = None
     skipped: str | None = None
     input_sha256: str | None = None
@@ -172,7 +172,8 @@ def _tasks(queue, todo, token: str, versions: dict, send_bytes: bool, threads: i
         path = original_path(queue.paths, record_id, meta)
         newest = queue.runs(record_id)[-1]
         try:
-            stretches = flagged_stretches(load_assessment(queue.paths, record_id, newest.run_id), meta.get("duration_s") or 0.0)
+            assessment = load_assessment(queue.paths, record_id, newest.run_id)
+            stretches = flagged_stretches(assessment, meta.get("duration_s") or 0.0)
         except TracevetError:
             stretches = []
         record = RecordTask(
@@ -209,7 +210,8 @@ def _store(queue, task: SuggestTask, result, error: str | None, versions: dict) 
     if difference is not None:
         return SuggestOutcome(record_id, error=f"refused: result from a worker with other software ({difference})")
     if result.input_sha256 != task.record.original_sha256:
-        return SuggestOutcome(record_id, error="refused: the worker used bytes that do not match the original's checksum")
+        problem = "refused: the worker used bytes that do not match the original's checksum"
+        return SuggestOutcome(record_id, error=problem)
     try:
         meta = read_meta(queue.paths, record_id)
         samples = getattr(result.cleaned, "samples", None)
