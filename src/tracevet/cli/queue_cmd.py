@@ -11,17 +11,8 @@ import json
 import sys
 from collections import Counter
 
+from tracevet.cli.defaults import QUEUE_HELP, queue_path
 from tracevet.text import inert
-
-_STATE_WORDS = {
-    "to-clean": "waiting to be cleaned",
-    "to-review": "ready for review",
-    "in-review": "being reviewed",
-    "accepted": "accepted",
-    "rejected": "rejected",
-    "sent-back": "sent back for a re-run",
-}
-
 
 def register(subparsers) -> None:
     """Add the queue commands to the ``tracevet`` parser."""
@@ -100,6 +91,12 @@ def register(subparsers) -> None:
         "instead of receiving their bytes",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument(
+        "--suggest",
+        action="store_true",
+        help="then, for each record whose newest run has flags, add a run made with suggested settings "
+        "(docs/suggest.md)",
+    )
     p.set_defaults(func=cmd_clean)
 
     p = subparsers.add_parser(
@@ -107,7 +104,7 @@ def register(subparsers) -> None:
         help="counts per state, flags and who holds what",
         description="Show the queue's records by state, flags and claims.",
     )
-    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("queue", metavar="QUEUE", nargs="?", help=QUEUE_HELP)
     p.add_argument("--list", action="store_true", help="one line per record")
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=cmd_status)
@@ -135,6 +132,11 @@ def register(subparsers) -> None:
         help="with rerun: settings for the re-run (over the queue's)",
     )
     p.add_argument("--profile", metavar="FILE", help="with rerun: a profile for the re-run")
+    p.add_argument(
+        "--override",
+        action="store_true",
+        help="decide over another reviewer's decision that still stands (the log entry names the one overridden)",
+    )
     p.add_argument("--json", action="store_true", help="print the log entry as JSON")
     p.set_defaults(func=cmd_decide)
 
@@ -156,7 +158,7 @@ def register(subparsers) -> None:
             "or remove a torn last line (--repair)."
         ),
     )
-    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("queue", metavar="QUEUE", nargs="?", help=QUEUE_HELP)
     p.add_argument("--record", help="only entries about this record")
     p.add_argument("--json", action="store_true", help="entries (or problems) as JSON")
     group = p.add_mutually_exclusive_group()
@@ -180,15 +182,15 @@ def register(subparsers) -> None:
 
 
 def _reviewer(args) -> str:
-    from tracevet.workqueue import check_reviewer, default_reviewer
+    from tracevet.workqueue import resolve_reviewer
 
-    return check_reviewer(args.reviewer if getattr(args, "reviewer", None) is not None else default_reviewer())
+    return resolve_reviewer(getattr(args, "reviewer", None))
 
 
 def _open(args):
     from tracevet.workqueue import Queue
 
-    return Queue.open(args.queue)
+    return Queue.open(queue_path(args.queue))
 
 
 # ---------------------------------------------------------------- init / add
@@ -293,9 +295,17 @@ def cmd_clean(args) -> int:
     outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress, cluster=cluster)
     made = [o for o in outcomes if o.run_id]
     flagged = Counter(o.worst_severity or "none" for o in made)
+
+    def finish(code: int) -> int:
+        if not getattr(args, "suggest", False):
+            return code
+        from tracevet.cli.suggest_cmd import suggest_pass
+
+        return max(code, suggest_pass(queue, args, cluster))
+
     if not outcomes:
         print("nothing waiting to be cleaned")
-        return 0
+        return finish(0)
     where = f" on {inert(cluster.address, 80)}" if cluster is not None else ""
     print(
         f"cleaned {len(made)} record(s){where}: {flagged.get('fail', 0)} with fail flags, "
@@ -311,8 +321,8 @@ def cmd_clean(args) -> int:
             f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting",
             file=sys.stderr,
         )
-        return 1
-    return 0
+        return finish(1)
+    return finish(0)
 
 
 # -------------------------------------------------------------------- status
@@ -360,7 +370,7 @@ def cmd_status(args) -> int:
         return 0
     print(f"queue {inert(queue.root)}: {len(records)} record(s)")
     for state in STATES:
-        print(f"  {state:<10} {states.get(state, 0):>6}  {_STATE_WORDS[state]}")
+        print(f"  {state:<10} {states.get(state, 0):>6}  {state.meaning}")
     print(
         f"flags on the newest runs: {flags.get('fail', 0)} fail, {flags.get('warn', 0)} warn, {flags.get('none', 0)} "
         "none"
@@ -380,8 +390,9 @@ def cmd_status(args) -> int:
 
 # ---------------------------------------------------------- decide / claims
 def cmd_decide(args) -> int:
-    """``tracevet decide QUEUE RECORD accept|reject|rerun``."""
+    """``tracevet decide QUEUE RECORD accept|reject|rerun [--override]``."""
     from tracevet.errors import InputError
+    from tracevet.workqueue.states import DECISION_PAST
 
     queue = _open(args)
     requested = None
@@ -394,16 +405,22 @@ def cmd_decide(args) -> int:
     elif args.overrides or args.profile:
         raise InputError("--set/--profile", "settings go with a 'rerun' decision only")
     entry = queue.decide(
-        args.record, args.decision, args.note, _reviewer(args), run_id=args.run, requested_settings=requested
+        args.record, args.decision, args.note, _reviewer(args), run_id=args.run, requested_settings=requested,
+        override=args.override,
     )
     if args.json:
         print(json.dumps(entry.data))
         return 0
-    word = {"accept": "accepted", "reject": "rejected", "rerun": "sent back for a re-run"}[entry.decision]
-    print(
-        f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} (log entry {entry.seq}, hash "
-        f"{entry.hash[:16]})"
+    word = DECISION_PAST[entry.decision]
+    line = (
+        f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} "
+        f"(log entry {entry.seq}, hash {entry.hash[:16]})"
     )
+    overridden = entry.get("overrides")
+    if isinstance(overridden, dict):
+        past = DECISION_PAST.get(str(overridden.get("decision")), inert(overridden.get("decision"), 20))
+        line += f"; overrides entry {overridden.get('seq')} ({past} by {inert(overridden.get('reviewer'), 60)})"
+    print(line)
     return 0
 
 
@@ -438,6 +455,12 @@ def _entry_line(entry) -> str:
         what = f"{'takeover':<7} {entry.record}: {inert(entry.get('reason'), 80)}"
     else:
         what = f"{entry.event:<7} {inert(entry.note, 100)}"
+    overridden = entry.get("overrides") if entry.event == "decision" else None
+    if isinstance(overridden, dict):
+        what += (
+            f" (overrides entry {overridden.get('seq')}, {inert(overridden.get('decision'), 10)}"
+            f" by {inert(overridden.get('reviewer'), 40)})"
+        )
     note = f'  "{inert(entry.note, 300)}"' if entry.event == "decision" and entry.note else ""
     digest = entry.get("settings_digest")
     extra = (
@@ -505,7 +528,7 @@ def cmd_log(args) -> int:
     if torn is not None:
         print(
             f"tracevet: the log ends with a torn line (line {torn.line}, {torn.size} bytes) from an interrupted "
-            f"write; 'tracevet log {inert(args.queue, 100)} --repair' removes it",
+            f"write; 'tracevet log {inert(queue.root, 100)} --repair' removes it",
             file=sys.stderr,
         )
     return 0
