@@ -271,7 +271,9 @@ def run(split: str, count: int, methods: dict, with_assess: bool, verbose: bool)
                 a = assess(truth_rec, Recording(out[:, None], fs, ("I",), units=units, kind=kind))
                 failed = [f.id for f in a.flags if f.severity == "fail"]
             rows[name].append(
-                dict(desc=desc, kind=kind, snr_in=snr_in, gain=gain, prd=prd, r=r_err, st=st, shift=shift, failed=failed)
+                dict(
+                    desc=desc, kind=kind, snr_in=snr_in, gain=gain, prd=prd, r=r_err, st=st, shift=shift, failed=failed
+                )
             )
             if verbose:
                 print(f"{i:3d} {desc:34s} {name:12s} in {snr_in:5.1f} gain {gain:6.2f} R {r_err:5.1f}% ST {st:.3f} "
