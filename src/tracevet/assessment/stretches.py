@@ -1,0 +1,575 @@
+"""Beat-by-beat and stretch-by-stretch assessment: damage confined to part of a record, and where it is.
+
+The templates of :mod:`tracevet.assessment.shape_measures` speak for the
+median beat; damage on a minority of beats leaves them unchanged. Here every
+beat of every morphology group is read on its own, in two stages:
+
+1. **Screen** (vectorised over beats, in chunks, no loop per beat): for each
+   beat, first-order readings of what the cleaning took from it, all linear
+   (or, for energies, products of neighbouring beats) in the removed part
+   ``original - cleaned`` of that beat after its own isoelectric level and
+   slow baseline are taken out (as for the templates): R amplitude, ST level,
+   P and T amplitude, timing shift (projection on the template's slope),
+   QRS width change (slope-crossing shift), beat shape in the removed part,
+   ringing beside the QRS and overall shape change. A single beat is noisy,
+   so every reading is judged through its running median over
+   :data:`STRETCH_BEATS` consecutive beats of the same group: a stretch of at
+   least :data:`MIN_STRETCH_BEATS` beats beyond a limit moves the median, one
+   odd beat never does. Beats whose median passes a screening level (a
+   fraction of the warn limit, never below the noise of a median of
+   ``STRETCH_BEATS`` beats) form candidate stretches.
+2. **Confirm**: each candidate stretch gets the template measures and flag
+   rules of the whole record (:func:`~tracevet.assessment.shape_measures.measure_templates`,
+   :func:`~tracevet.assessment.flags.evaluate`) on its own beats, so a
+   stretch is flagged by the same rules and limits as a record, with a noise
+   allowance that is never smaller than the one the whole group's
+   beat-to-beat spread gives for that many beats.
+
+Besides shapes, the level of every beat is compared between original and
+cleaned (:func:`baseline_excursions`): a cleaning must not move beats away
+from their level (a level shift, a start-up swoop of a high-pass filter),
+and long pauses in the beat sequence are reported as not measurable.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
+
+from tracevet.assessment.beats import (
+    MAD_TO_SD,
+    MEDIAN_SE_FACTOR,
+    BeatWindows,
+    cut_windows,
+    windows_at,
+)
+from tracevet.assessment.fiducials import SLOPE_SMOOTH_S, at_limit, moving_average, qrs_bounds, slope_of
+from tracevet.assessment.flags import Flag, evaluate, grade
+from tracevet.assessment.limits import Limits
+from tracevet.assessment.removed_part import detrended, remove_slow_trend, smooth_rows_same
+from tracevet.assessment.shape_measures import TemplateMeasures, measure_templates, noise_k
+
+# Beats in the running median that judges a stretch; a stretch needs more than
+# half of them, MIN_STRETCH_BEATS consecutive beats, to move it.
+STRETCH_BEATS = 5
+MIN_STRETCH_BEATS = (STRETCH_BEATS + 1) // 2
+# Screening level: this fraction of the warn limit (the confirmation decides).
+SCREEN_FRACTION = 0.6
+# Standard errors of a running median the screen must exceed (common practice).
+SCREEN_K = 4.0
+# Beats per vectorised chunk (bounds memory on 24-hour records).
+CHUNK_BEATS = 2048
+# Most candidate stretches confirmed with templates per group (the worst first).
+MAX_CONFIRMED = 40
+# A pause in the beat sequence longer than max(GAP_MIN_S, GAP_RR x median RR)
+# is not measurable (common practice: a pause of 3 s is a clinical alarm).
+GAP_MIN_S = 3.0
+GAP_RR = 3.0
+# Standard errors a single beat's level must exceed at an end (first or last
+# beat of the record or of a gap), where it is judged alone.
+END_K = 5.0
+# Flags whose rules come from the templates (the ones a stretch can confirm).
+TEMPLATE_FLAG_IDS = (
+    "r-peak-change",
+    "qrs-widening",
+    "beat-timing-shift",
+    "st-level-change",
+    "p-wave-change",
+    "t-wave-change",
+    "ringing",
+    "removed-beat-structure",
+    "beat-shape-change",
+)
+
+
+def running_median(values: np.ndarray, k: int = STRETCH_BEATS) -> np.ndarray:
+    """Centred running median over ``k`` values; at the ends the first or last whole window.
+
+    Vectorised with a strided view (common practice). Fewer than ``k``
+    values give their overall median everywhere.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    n = values.size
+    if n == 0:
+        return values
+    if n < k:
+        return np.full(n, np.median(values))
+    medians = np.median(sliding_window_view(values, k), axis=1)
+    index = np.clip(np.arange(n) - k // 2, 0, n - k)
+    return medians[index]
+
+
+def robust_sigma(values: np.ndarray) -> float:
+    """Beat-to-beat noise of a per-beat reading: 1.4826 MAD of first differences / sqrt 2.
+
+    Differences of neighbours are blind to slow changes and to long damaged
+    stretches, so the noise is not inflated by the damage it must judge
+    (robust noise estimate, common practice).
+    """
+    values = np.asarray(values, dtype=np.float64)
+    if values.size < 3:
+        return 0.0
+    d = np.diff(values)
+    return float(MAD_TO_SD * np.median(np.abs(d - np.median(d))) / np.sqrt(2.0))
+
+
+def median_se(sigma: float, n: int) -> float:
+    """Standard error of a median of ``n`` values of s.d. ``sigma``: sqrt(pi/2) sigma / sqrt(n) (common practice)."""
+    return MEDIAN_SE_FACTOR * sigma / np.sqrt(max(n, 1))
+
+
+def runs_of(mask: np.ndarray, min_len: int = 1) -> list[tuple[int, int]]:
+    """``[start, stop)`` index runs of True in ``mask`` at least ``min_len`` long (vectorised)."""
+    mask = np.asarray(mask, dtype=bool)
+    if not mask.any():
+        return []
+    edges = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    keep = stops - starts >= min_len
+    return list(zip(starts[keep].tolist(), stops[keep].tolist()))
+
+
+@dataclass
+class Geometry:
+    """Where the screen reads each beat: points found on a group's original template."""
+
+    pre: int
+    post: int
+    fs: float
+    iso: slice
+    r: int
+    polarity: float
+    amplitude: float
+    st: slice
+    waves: dict  # name -> (index, polarity, amplitude) for the measurable P and T
+    timing_kernel: tuple  # (slice, kernel / <kernel, kernel>)
+    width_points: list  # (on, off, steep, sign_on, sign_off, sign_steep, c_on, c_off, fraction)
+    flanks: list
+    shape_energy: float
+    centred: np.ndarray
+
+
+def geometry(tm: TemplateMeasures, windows: BeatWindows) -> Geometry | None:
+    """Reading points of the screen from a group's template measures; ``None`` without an R amplitude."""
+    fs, fid, x_t = windows.fs, tm.fiducials, tm.original
+    if not tm.r_amplitude > 0:
+        return None
+    iso_x = float(np.mean(x_t[fid.iso]))
+    dev = x_t - iso_x
+    smooth_width = int(round(0.04 * fs))
+    sm = moving_average(dev, smooth_width)
+    waves = {}
+    for name, index in (("p", fid.p), ("t", fid.t)):
+        if index is not None and tm.metrics.get(f"{name}_amplitude_ratio") is not None:
+            waves[name] = (int(index), 1.0 if sm[index] >= 0 else -1.0, abs(float(sm[index])))
+    lo = max(0, int(np.floor(fid.onset)) - int(round(0.02 * fs)))
+    hi = min(x_t.size, int(np.ceil(fid.offset)) + int(round(0.02 * fs)) + 1)
+    g = np.gradient(x_t)[lo:hi]
+    gg = float(g @ g)
+    timing = (slice(lo, hi), g / gg if gg > 0 else np.zeros_like(g))
+    # QRS width: crossing points of each slope threshold (4-8 % of the steepest
+    # slope), as the template measure reads them.
+    signed = slope_of(x_t, fs)
+    slope = np.abs(signed)
+    reach = max(1, int(round(0.025 * fs)))
+    a, b = max(0, fid.r - reach), fid.r + reach + 1
+    steep = a + int(np.argmax(slope[a:b]))
+    before = max(1, int(round(min(0.10, 0.20 * windows.rr_s) * fs)))
+    after = max(1, int(round(min(0.12, 0.22 * windows.rr_s) * fs)))
+    curvature = np.gradient(slope)
+    points = []
+    for fraction in (0.04, 0.05, 0.06, 0.07, 0.08):
+        on, off = qrs_bounds(slope, fid.r, fraction * float(slope[steep]), before, after, fs)
+        if at_limit(on, off, fid.r, before, after, x_t.size):
+            continue
+        i_on, i_off = int(round(on)), int(round(off))
+        c_on, c_off = float(curvature[i_on]), float(curvature[i_off])
+        if c_on <= 0 or c_off >= 0:
+            continue
+        points.append((i_on, i_off, steep, np.sign(signed[i_on]), np.sign(signed[i_off]), np.sign(signed[steep]),
+                       c_on, c_off, fraction))
+    gap = max(1, int(round(0.01 * fs)))
+    left_len, right_len = max(3, int(round(0.06 * fs))), max(3, int(round(0.08 * fs)))
+    flanks = []
+    left_hi = int(np.floor(fid.onset)) - gap
+    if left_hi - left_len >= 0:
+        flanks.append(slice(left_hi - left_len, left_hi))
+    right_lo = int(np.ceil(fid.offset)) + gap
+    if right_lo + right_len <= x_t.size:
+        flanks.append(slice(right_lo, right_lo + right_len))
+    xs = moving_average(x_t, int(round(0.02 * fs)))
+    xs = xs - xs.mean()
+    centred = x_t - x_t.mean()
+    return Geometry(windows.pre, windows.post, fs, fid.iso, fid.r, fid.polarity, float(tm.r_amplitude), fid.st, waves,
+                    timing, points, flanks, float(xs @ xs), centred)
+
+
+# Screen readings: name -> (flag id, kind). Kinds: "fraction", "ms", "amp" (record
+# units), "energy-amp" and "energy-shape" (products of neighbouring beats).
+SCREEN = {
+    "r": ("r-peak-change", "fraction"),
+    "st": ("st-level-change", "amp"),
+    "p": ("p-wave-change", "fraction"),
+    "t": ("t-wave-change", "fraction"),
+    "timing": ("beat-timing-shift", "ms"),
+    "width": ("qrs-widening", "ms"),
+    "removed": ("removed-beat-structure", "fraction"),
+    "ring0": ("ringing", "energy-amp"),
+    "ring1": ("ringing", "energy-amp"),
+    "shape": ("beat-shape-change", "energy-shape"),
+}
+
+
+def _chunk_readings(x: np.ndarray, y: np.ndarray, geo: Geometry, previous: dict | None) -> tuple[dict, dict]:
+    """Screen readings of one chunk of beats (rows); ``previous`` carries the last beat of the chunk before."""
+    fs = geo.fs
+    x_w = x - x[:, geo.iso].mean(axis=1, keepdims=True)
+    y_w = y - y[:, geo.iso].mean(axis=1, keepdims=True)
+    r = remove_slow_trend(x_w - y_w, geo.iso, fs)
+    out: dict = {}
+    out["r"] = geo.polarity * r[:, geo.r] / geo.amplitude
+    out["st"] = -r[:, geo.st].mean(axis=1)
+    if geo.waves:
+        sm = smooth_rows_same(r, int(round(0.04 * fs)))
+        for name, (index, polarity, amp) in geo.waves.items():
+            out[name] = polarity * sm[:, index] / amp
+    sl, kernel = geo.timing_kernel
+    out["timing"] = 1000.0 / fs * (r[:, sl] @ kernel)
+    ss = smooth_rows_same(r, int(round(SLOPE_SMOOTH_S * fs)))
+    sr = np.gradient(ss, axis=1)
+    if geo.width_points:
+        changes = []
+        for on, off, steep, s_on, s_off, s_steep, c_on, c_off, fraction in geo.width_points:
+            d_off = (s_off * sr[:, off] - fraction * s_steep * sr[:, steep]) / c_off
+            d_on = (s_on * sr[:, on] - fraction * s_steep * sr[:, steep]) / c_on
+            changes.append(d_off - d_on)
+        out["width"] = 1000.0 / fs * np.median(np.stack(changes, axis=1), axis=1)
+    rc = r - r.mean(axis=1, keepdims=True)
+    denom = float(geo.centred @ geo.centred)
+    out["removed"] = rc @ geo.centred / denom if denom > 0 else np.zeros(r.shape[0])
+    # Energies from products of neighbouring beats: the noise of two beats is
+    # independent, so <a_i, a_(i-1)> estimates the beat-locked energy alone.
+    rs = smooth_rows_same(r, int(round(0.02 * fs)))
+    rs = rs - rs.mean(axis=1, keepdims=True)
+    carry = {"shape": rs[-1:]}
+    parts = {"shape": rs}
+    for j, flank in enumerate(geo.flanks[:2]):
+        d = detrended(r[:, flank])
+        parts[f"ring{j}"] = d
+        carry[f"ring{j}"] = d[-1:]
+    for name, rows in parts.items():
+        before = previous[name] if previous is not None else rows[:1]
+        shifted = np.concatenate([before, rows[:-1]], axis=0)
+        product = np.einsum("ij,ij->i", rows, shifted)
+        out[name] = product / rows.shape[1] if name.startswith("ring") else product / max(geo.shape_energy, 1e-300)
+    return out, carry
+
+
+def screen_readings(original: np.ndarray, cleaned: np.ndarray, centres: np.ndarray, geo: Geometry) -> dict:
+    """Screen readings of every beat at ``centres`` (whole windows only), chunk by chunk."""
+    readings: dict[str, list] = {}
+    carry = None
+    for start in range(0, centres.size, CHUNK_BEATS):
+        part = centres[start : start + CHUNK_BEATS]
+        x = cut_windows(original, part, geo.pre, geo.post).astype(np.float64)
+        y = cut_windows(cleaned, part, geo.pre, geo.post).astype(np.float64)
+        out, carry = _chunk_readings(x, y, geo, carry)
+        for name, values in out.items():
+            readings.setdefault(name, []).append(values)
+    return {name: np.concatenate(parts) for name, parts in readings.items()}
+
+
+def _nominal_warn(flag_id: str, limits: Limits, amplitude: float) -> float | None:
+    """Warn limit of ``flag_id`` in the screen reading's unit (record units for amplitudes)."""
+    spec = limits.spec(flag_id)
+    if not spec.enabled:
+        return None
+    if spec.amplitude:
+        warn, fail = limits.amplitude_limits(flag_id, amplitude)
+        return warn if warn is not None else fail
+    return spec.warn if spec.warn is not None else spec.fail
+
+
+def screen(readings: dict, geo: Geometry, limits: Limits) -> tuple[np.ndarray, np.ndarray, dict]:
+    """Judge the running medians; return (candidate mask, score, noise per reading).
+
+    ``score`` is the largest ratio, over readings, of a beat's running median
+    to its screening level (candidates have score > 1); ``noise`` holds the
+    beat-to-beat s.d. of each reading (for the confirmation's allowance).
+    """
+    n = next(iter(readings.values())).size if readings else 0
+    score = np.zeros(n)
+    noise: dict = {}
+    shape_warn = limits.spec("beat-shape-change").warn
+    for name, values in readings.items():
+        flag_id, kind = SCREEN[name]
+        sigma = robust_sigma(values)
+        noise[name] = sigma
+        if kind == "energy-shape":
+            warn = None if shape_warn is None or not limits.spec(flag_id).enabled else (shape_warn / 100.0) ** 2
+        elif kind == "energy-amp":
+            amp_warn = _nominal_warn(flag_id, limits, geo.amplitude)
+            warn = None if amp_warn is None else amp_warn**2
+        else:
+            warn = _nominal_warn(flag_id, limits, geo.amplitude)
+        if warn is None:
+            continue
+        level = max(SCREEN_FRACTION * warn if not kind.startswith("energy") else SCREEN_FRACTION**2 * warn,
+                    SCREEN_K * median_se(sigma, STRETCH_BEATS))
+        if not level > 0:
+            continue
+        med = running_median(values)
+        ratio = (med if kind.startswith("energy") else np.abs(med)) / level
+        np.maximum(score, ratio, out=score)
+    return score > 1.0, score, noise
+
+
+# Confirmation allowance from the group's beat-to-beat noise: metric -> (screen
+# reading, scale from the reading's unit to the metric's).
+_NOISE_TO_METRIC = {
+    "r_amplitude_ratio": "r",
+    "st_change": "st",
+    "p_amplitude_ratio": "p",
+    "t_amplitude_ratio": "t",
+    "r_timing_shift_ms": "timing",
+    "qrs_width_change_ms": "width",
+    "removed_beat_fraction": "removed",
+}
+
+
+@dataclass
+class StretchFlag:
+    """One flag raised on one confirmed stretch."""
+
+    flag: Flag
+    start_s: float
+    end_s: float
+    beats: int
+
+
+@dataclass
+class GroupResult:
+    """Screen and confirmation of one morphology group."""
+
+    measured: int = 0
+    stretches: list = field(default_factory=list)  # StretchFlag
+    worst_metrics: dict = field(default_factory=dict)
+
+
+def assess_group(
+    original: np.ndarray,
+    cleaned: np.ndarray,
+    centres: np.ndarray,
+    windows: BeatWindows,
+    tm: TemplateMeasures,
+    limits: Limits,
+    channel: str,
+) -> GroupResult:
+    """Screen every beat of one group and confirm the candidate stretches with template measures.
+
+    Parameters
+    ----------
+    original, cleaned : numpy.ndarray
+        The traces.
+    centres : numpy.ndarray
+        Beat centres of the group in time order (detected peak plus the
+        group's alignment offset).
+    windows, tm : BeatWindows, TemplateMeasures
+        The group's template windows and measures (reading points).
+    limits : Limits
+        Limits in force.
+    channel : str
+        Channel name for messages.
+    """
+    result = GroupResult()
+    geo = geometry(tm, windows)
+    n_samples = original.size
+    centres = centres[(centres >= windows.pre) & (centres < n_samples - windows.post)]
+    if geo is None or centres.size < STRETCH_BEATS:
+        return result
+    result.measured = int(centres.size)
+    readings = screen_readings(original, cleaned, centres, geo)
+    mask, score, noise = screen(readings, geo, limits)
+    runs = runs_of(mask, MIN_STRETCH_BEATS)
+    if not runs:
+        return result
+    # The worst candidates first, when there are more than can be confirmed.
+    runs.sort(key=lambda run: -float(np.max(score[run[0] : run[1]])))
+    fs = windows.fs
+    for start, stop in sorted(runs[:MAX_CONFIRMED]):
+        beats = centres[start:stop]
+        stretch = windows_at(original, cleaned, beats, windows)
+        if stretch is None:
+            continue
+        measures = measure_templates(stretch)
+        n = stretch.n_used
+        allowance = dict(measures.allowance)
+        k = noise_k(n)
+        for metric, name in _NOISE_TO_METRIC.items():
+            if name in noise:
+                allowance[metric] = max(allowance.get(metric, 0.0), k * median_se(noise[name], n))
+        metrics = dict(measures.metrics)
+        flags = [f for f in evaluate(channel, metrics, allowance, limits) if f.id in TEMPLATE_FLAG_IDS]
+        start_s = max(0.0, (beats[0] - windows.pre) / fs)
+        end_s = min(n_samples / fs, (beats[-1] + windows.post) / fs)
+        for flag in flags:
+            result.stretches.append(StretchFlag(flag, start_s, end_s, int(stop - start)))
+        if flags:
+            for key in ("r_amplitude_ratio", "st_change"):
+                value = metrics.get(key)
+                if value is None:
+                    continue
+                old = result.worst_metrics.get(key)
+                worse = abs(1.0 - value) if key == "r_amplitude_ratio" else abs(value)
+                if old is None or worse > (abs(1.0 - old) if key == "r_amplitude_ratio" else abs(old)):
+                    result.worst_metrics[key] = value
+    return result
+
+
+# --------------------------------------------------------------------------- levels and gaps
+
+
+def gaps(peaks: np.ndarray, fs: float, n_samples: int, pre: int, post: int) -> list[tuple[float, float]]:
+    """Stretches (s) without measurable beats: pauses longer than max(3 s, 3 median RR), also at the ends."""
+    if peaks.size < 2:
+        return [(0.0, n_samples / fs)]
+    rr = float(np.median(np.diff(peaks)))
+    longest = max(GAP_MIN_S * fs, GAP_RR * rr)
+    bounds = np.concatenate([[-pre - 1], peaks, [n_samples + post]])
+    d = np.diff(bounds)
+    out = []
+    for i in np.flatnonzero(d > longest).tolist():
+        a = max(0, int(bounds[i]) + post)
+        b = min(n_samples, int(bounds[i + 1]) - pre)
+        if b > a:
+            out.append((a / fs, b / fs))
+    return out
+
+
+def _window_levels(signal: np.ndarray, centres: np.ndarray, pre: int, post: int) -> np.ndarray:
+    """Median of ``signal`` over each beat window [c - pre, c + post] (clipped to the trace), chunked."""
+    offsets = np.arange(-pre, post + 1)
+    out = np.empty(centres.size)
+    last = signal.size - 1
+    for start in range(0, centres.size, CHUNK_BEATS):
+        part = centres[start : start + CHUNK_BEATS]
+        idx = np.clip(part[:, None] + offsets[None, :], 0, last)
+        out[start : start + part.size] = np.median(signal[idx], axis=1)
+    return out
+
+
+@dataclass
+class Excursions:
+    """Beat levels moved by the cleaning: per-beat excess, affected stretches."""
+
+    value: float | None
+    spans: list
+    affected: int
+    measured: int
+    allowance: float
+
+
+def baseline_excursions(
+    original: np.ndarray,
+    cleaned: np.ndarray,
+    centres: np.ndarray,
+    labels: np.ndarray,
+    fs: float,
+    pre: int,
+    post: int,
+    to_limit_unit: float,
+    warn: float | None,
+) -> Excursions:
+    """How far the cleaning moved beats from their level beyond where the original had them.
+
+    For every beat, the median of its window [R - pre, R + post] in the
+    original (``Lx``) and in the cleaned trace (``Ly``), each against its
+    group's median over the record (``cx``, ``cy``); the excess
+    ``|Ly - cy| - |Lx - cx|`` is what the cleaning added: removing baseline
+    wander the original has gives a value at or below zero, a level shift or
+    the start-up swoop of a high-pass filter a positive one. The median of a
+    beat window is a robust level (the QRS is a small part of it). Interior
+    beats are judged through the running median over :data:`STRETCH_BEATS`
+    beats; the first and last beat of the record, of each stretch between
+    pauses, and the trace before the first and after the last beat window
+    are judged alone (an excursion added at an end decays within a few
+    beats), with :data:`END_K` standard errors of a single beat's level.
+
+    Parameters
+    ----------
+    to_limit_unit : float
+        Factor from record units to the limit's unit (mV per unit, or 1/R).
+    warn : float or None
+        The lowest limit in force, in the limit's unit (stretches beyond it,
+        after the noise allowance, are returned).
+    """
+    n = original.size
+    if centres.size == 0 or warn is None:
+        return Excursions(None, [], 0, 0, 0.0)
+    lx = _window_levels(original, centres, pre, post)
+    ly = _window_levels(cleaned, centres, pre, post)
+    # The trace before the first and after the last beat window, when there is room.
+    ends = []
+    room = int(round(0.25 * fs))
+    first_lo, last_hi = int(centres[0]) - pre, int(centres[-1]) + post + 1
+    if first_lo >= room:
+        ends.append((0, first_lo))
+    if n - last_hi >= room:
+        ends.append((last_hi, n))
+    group = np.where(labels == 1, 1, 0)
+    cx, cy = np.zeros(centres.size), np.zeros(centres.size)
+    for g in (0, 1):
+        sel = group == g
+        if sel.any():
+            cx[sel], cy[sel] = np.median(lx[sel]), np.median(ly[sel])
+    excess = (np.abs(ly - cy) - np.abs(lx - cx)) * to_limit_unit
+    sigma = robust_sigma((ly - lx) * to_limit_unit)
+    allow_stretch = noise_k(STRETCH_BEATS) * median_se(sigma, STRETCH_BEATS)
+    allow_end = END_K * sigma
+    judged = running_median(excess)
+    beyond = judged > max(warn, allow_stretch)
+    values = [float(np.max(judged))] if judged.size else []
+    # Ends: the first and last beat of the record and of every stretch between pauses.
+    rr = float(np.median(np.diff(centres))) if centres.size > 1 else n
+    pause = np.flatnonzero(np.diff(centres) > max(GAP_MIN_S * fs, GAP_RR * rr))
+    end_beats = np.unique(np.concatenate([[0, centres.size - 1], pause, pause + 1]))
+    end_hit = excess[end_beats] > max(warn, allow_end)
+    beyond[end_beats[end_hit]] = True
+    values.append(float(np.max(excess[end_beats])))
+    spans = [((int(c) - pre) / fs, (int(c) + post) / fs) for c in centres[beyond]]
+    for a, b in ends:
+        level_x, level_y = float(np.median(original[a:b])), float(np.median(cleaned[a:b]))
+        near = 0 if a == 0 else centres.size - 1
+        e = (abs(level_y - cy[near]) - abs(level_x - cx[near])) * to_limit_unit
+        values.append(e)
+        if e > max(warn, allow_end):
+            spans.append((a / fs, b / fs))
+    spans = [(max(0.0, a), min(n / fs, b)) for a, b in spans]
+    return Excursions(max(values), spans, int(np.sum(beyond)), int(centres.size), max(allow_stretch, 0.0))
+
+
+def excursion_flag(channel: str, exc: Excursions, limits: Limits, amp_unit: str) -> Flag | None:
+    """The ``baseline-excursion`` flag from :func:`baseline_excursions` (``None`` below the limits)."""
+    spec = limits.spec("baseline-excursion")
+    if not spec.enabled or exc.value is None or not exc.spans:
+        return None
+    if limits.absolute:
+        warn, fail = spec.warn, spec.fail
+    else:
+        warn, fail = spec.warn_relative, spec.fail_relative
+    severity, applied = grade(exc.value, warn, fail)
+    if severity is None:
+        return None
+    if amp_unit == "mV":
+        size, lim, kind = f"{exc.value:.3f} mV", f"{applied:.3f} mV", "absolute limit in mV (ECG in known units)"
+    else:
+        size = f"{100 * exc.value:.1f} % of the R amplitude"
+        lim = f"{100 * applied:.1f} % of the R amplitude"
+        kind = "relative limit, a fraction of the original R amplitude (MCG or unknown units)"
+    message = (
+        f"channel {channel}: the cleaning moved beats away from their level by up to {size} more than the "
+        f"original had them (a level shift or a filter's start-up swoop; limit {lim}; {kind})"
+    )
+    return Flag("baseline-excursion", severity, message, exc.value, applied, spec.source, channel)
