@@ -229,7 +229,8 @@ def assess_channel(
     spec = limits.spec("baseline-excursion")
     warn = spec.warn if limits.absolute else spec.warn_relative
     if to_unit is not None:
-        exc = baseline_excursions(original, cleaned, windows.peaks, labels, fs, windows.pre, windows.post, to_unit,
+        exc = baseline_excursions(original, cleaned, windows.peaks + windows.offset, labels, fs, windows.pre, windows.post,
+                                  measures.fiducials.iso, to_unit,
                                   warn if warn is not None else (spec.fail if limits.absolute else spec.fail_relative))
         metrics["baseline_excursion"] = exc.value
         flag = excursion_flag(channel, exc, limits, amp_unit)

@@ -48,7 +48,7 @@ from tracevet.assessment.beats import (
 from tracevet.assessment.fiducials import SLOPE_SMOOTH_S, at_limit, moving_average, qrs_bounds, slope_of
 from tracevet.assessment.flags import Flag, evaluate, grade
 from tracevet.assessment.limits import Limits
-from tracevet.assessment.removed_part import detrended, remove_slow_trend, smooth_rows_same
+from tracevet.assessment.removed_part import detrended
 from tracevet.assessment.shape_measures import TemplateMeasures, measure_templates, noise_k
 
 # Beats in the running median that judges a stretch; a stretch needs more than
@@ -131,65 +131,130 @@ def runs_of(mask: np.ndarray, min_len: int = 1) -> list[tuple[int, int]]:
     return list(zip(starts[keep].tolist(), stops[keep].tolist()))
 
 
+def anchor_basis(m: int, iso: slice, fs: float) -> tuple[int, np.ndarray | None]:
+    """Anchor length and the Lagrange basis (3 x m) of the parabola through a beat's three quiet anchors.
+
+    The same anchors as :func:`~tracevet.assessment.removed_part.remove_slow_trend`:
+    the first 30 ms, the isoelectric window and the last 30 ms of the window.
+    ``None`` when the anchors do not follow each other.
+    """
+    edge = max(1, int(round(0.03 * fs)))
+    t = np.arange(m, dtype=np.float64)
+    knots = np.array([(edge - 1) / 2.0, (iso.start + iso.stop - 1) / 2.0, m - 1 - (edge - 1) / 2.0])
+    if not (knots[0] < knots[1] < knots[2]):
+        return edge, None
+    basis = np.empty((3, m))
+    for i in range(3):
+        others = [knots[j] for j in range(3) if j != i]
+        basis[i] = (t - others[0]) * (t - others[1]) / ((knots[i] - others[0]) * (knots[i] - others[1]))
+    return edge, basis
+
+
 @dataclass
 class Geometry:
-    """Where the screen reads each beat: points found on a group's original template."""
+    """Where the screen reads each beat: points found on a group's original template.
+
+    Every linear reading is one column of ``weights`` (m x J): the reading of
+    a beat is ``r @ weights[:, j]`` with ``r`` the beat's removed part after
+    its parabola through the three anchors is taken out; as the parabola is
+    linear in the anchors, ``r @ w = d @ w - anchors(d) @ (basis @ w)`` with
+    ``d`` the raw removed part, one matrix product for all readings.
+    """
 
     pre: int
     post: int
     fs: float
     iso: slice
-    r: int
-    polarity: float
-    amplitude: float
-    st: slice
-    waves: dict  # name -> (index, polarity, amplitude) for the measurable P and T
-    timing_kernel: tuple  # (slice, kernel / <kernel, kernel>)
-    width_points: list  # (on, off, steep, sign_on, sign_off, sign_steep, c_on, c_off, fraction)
-    flanks: list
+    edge: int
+    basis: np.ndarray
+    names: list
+    weights: np.ndarray
+    widths: int  # the last ``widths`` columns are the QRS width change at each slope threshold
+    block: int
+    basis_blocks: np.ndarray
     shape_energy: float
-    centred: np.ndarray
+    flanks: list
+    amplitude: float
+
+
+def _box(m: int, centre: int, half: int) -> np.ndarray:
+    w = np.zeros(m)
+    lo, hi = max(0, centre - half), min(m, centre + half + 1)
+    w[lo:hi] = 1.0 / (hi - lo)
+    return w
 
 
 def geometry(tm: TemplateMeasures, windows: BeatWindows) -> Geometry | None:
     """Reading points of the screen from a group's template measures; ``None`` without an R amplitude."""
     fs, fid, x_t = windows.fs, tm.fiducials, tm.original
-    if not tm.r_amplitude > 0:
+    m = x_t.size
+    edge, basis = anchor_basis(m, fid.iso, fs)
+    if not tm.r_amplitude > 0 or basis is None:
         return None
+    amp = float(tm.r_amplitude)
     iso_x = float(np.mean(x_t[fid.iso]))
     dev = x_t - iso_x
-    smooth_width = int(round(0.04 * fs))
-    sm = moving_average(dev, smooth_width)
-    waves = {}
+    sm = moving_average(dev, int(round(0.04 * fs)))
+    names, columns = [], []
+
+    def add(name, w):
+        names.append(name)
+        columns.append(w)
+
+    r_w = np.zeros(m)
+    r_w[fid.r] = fid.polarity / amp
+    add("r", r_w)
+    st_w = np.zeros(m)
+    st_w[fid.st] = -1.0 / (fid.st.stop - fid.st.start)
+    add("st", st_w)
+    half_wave = max(1, int(round(0.04 * fs)) // 2)
     for name, index in (("p", fid.p), ("t", fid.t)):
         if index is not None and tm.metrics.get(f"{name}_amplitude_ratio") is not None:
-            waves[name] = (int(index), 1.0 if sm[index] >= 0 else -1.0, abs(float(sm[index])))
+            polarity = 1.0 if sm[index] >= 0 else -1.0
+            add(name, polarity * _box(m, int(index), half_wave) / abs(float(sm[index])))
+    # Timing: least-squares lag of the removed part on the template's slope over
+    # the QRS +-20 ms (y(t) = x(t - lag) gives removed = lag x'(t), first order).
     lo = max(0, int(np.floor(fid.onset)) - int(round(0.02 * fs)))
-    hi = min(x_t.size, int(np.ceil(fid.offset)) + int(round(0.02 * fs)) + 1)
-    g = np.gradient(x_t)[lo:hi]
+    hi = min(m, int(np.ceil(fid.offset)) + int(round(0.02 * fs)) + 1)
+    g = np.zeros(m)
+    g[lo:hi] = np.gradient(x_t)[lo:hi]
     gg = float(g @ g)
-    timing = (slice(lo, hi), g / gg if gg > 0 else np.zeros_like(g))
-    # QRS width: crossing points of each slope threshold (4-8 % of the steepest
-    # slope), as the template measure reads them.
+    if gg > 0:
+        add("timing", 1000.0 / fs * g / gg)
+    centred = x_t - x_t.mean()
+    denom = float(centred @ centred)
+    if denom > 0:
+        add("removed", centred / denom)
+    # QRS width: first-order shift of each slope-threshold crossing (4-8 % of
+    # the steepest slope, as the template measure reads them): at a crossing p
+    # with |slope| rising at rate c_p, the cleaned crossing moves by
+    # (sign_p s_r(p) - f sign_S s_r(S)) / c_p, s_r the removed part's slope.
     signed = slope_of(x_t, fs)
     slope = np.abs(signed)
     reach = max(1, int(round(0.025 * fs)))
-    a, b = max(0, fid.r - reach), fid.r + reach + 1
-    steep = a + int(np.argmax(slope[a:b]))
+    steep = max(0, fid.r - reach) + int(np.argmax(slope[max(0, fid.r - reach) : fid.r + reach + 1]))
     before = max(1, int(round(min(0.10, 0.20 * windows.rr_s) * fs)))
     after = max(1, int(round(min(0.12, 0.22 * windows.rr_s) * fs)))
     curvature = np.gradient(slope)
-    points = []
+    half = int(round(SLOPE_SMOOTH_S * fs)) // 2
+
+    def slope_w(col):
+        return (_box(m, min(m - 1, col + 1), half) - _box(m, max(0, col - 1), half)) / 2.0
+
+    widths = 0
     for fraction in (0.04, 0.05, 0.06, 0.07, 0.08):
         on, off = qrs_bounds(slope, fid.r, fraction * float(slope[steep]), before, after, fs)
-        if at_limit(on, off, fid.r, before, after, x_t.size):
+        if at_limit(on, off, fid.r, before, after, m):
             continue
         i_on, i_off = int(round(on)), int(round(off))
         c_on, c_off = float(curvature[i_on]), float(curvature[i_off])
         if c_on <= 0 or c_off >= 0:
             continue
-        points.append((i_on, i_off, steep, np.sign(signed[i_on]), np.sign(signed[i_off]), np.sign(signed[steep]),
-                       c_on, c_off, fraction))
+        at_steep = fraction * np.sign(signed[steep]) * slope_w(steep)
+        w = (np.sign(signed[i_off]) * slope_w(i_off) - at_steep) / c_off
+        w -= (np.sign(signed[i_on]) * slope_w(i_on) - at_steep) / c_on
+        add(f"width{widths}", 1000.0 / fs * w)
+        widths += 1
     gap = max(1, int(round(0.01 * fs)))
     left_len, right_len = max(3, int(round(0.06 * fs))), max(3, int(round(0.08 * fs)))
     flanks = []
@@ -197,13 +262,20 @@ def geometry(tm: TemplateMeasures, windows: BeatWindows) -> Geometry | None:
     if left_hi - left_len >= 0:
         flanks.append(slice(left_hi - left_len, left_hi))
     right_lo = int(np.ceil(fid.offset)) + gap
-    if right_lo + right_len <= x_t.size:
+    if right_lo + right_len <= m:
         flanks.append(slice(right_lo, right_lo + right_len))
-    xs = moving_average(x_t, int(round(0.02 * fs)))
+    # Shape energy on 10 ms block means (about the 20 ms moving average of the template measure).
+    block = max(1, int(round(0.01 * fs)))
+    xs = _block_means(x_t[None, :], block)[0]
     xs = xs - xs.mean()
-    centred = x_t - x_t.mean()
-    return Geometry(windows.pre, windows.post, fs, fid.iso, fid.r, fid.polarity, float(tm.r_amplitude), fid.st, waves,
-                    timing, points, flanks, float(xs @ xs), centred)
+    return Geometry(windows.pre, windows.post, fs, fid.iso, edge, basis, names, np.stack(columns, axis=1), widths,
+                    block, _block_means(basis, block), float(xs @ xs) * block, flanks, amp)
+
+
+def _block_means(rows: np.ndarray, block: int) -> np.ndarray:
+    """Means of consecutive blocks of ``block`` samples along each row (the tail shorter than a block dropped)."""
+    m = (rows.shape[1] // block) * block
+    return rows[:, :m].reshape(rows.shape[0], -1, block).mean(axis=2)
 
 
 # Screen readings: name -> (flag id, kind). Kinds: "fraction", "ms", "amp" (record
@@ -222,48 +294,32 @@ SCREEN = {
 }
 
 
-def _chunk_readings(x: np.ndarray, y: np.ndarray, geo: Geometry, previous: dict | None) -> tuple[dict, dict]:
-    """Screen readings of one chunk of beats (rows); ``previous`` carries the last beat of the chunk before."""
-    fs = geo.fs
-    x_w = x - x[:, geo.iso].mean(axis=1, keepdims=True)
-    y_w = y - y[:, geo.iso].mean(axis=1, keepdims=True)
-    r = remove_slow_trend(x_w - y_w, geo.iso, fs)
+def _chunk_readings(d: np.ndarray, geo: Geometry, previous: dict | None) -> tuple[dict, dict]:
+    """Screen readings of one chunk of beats (rows of the removed part); ``previous`` carries the beat before."""
+    m = d.shape[1]
+    anchors = np.stack([d[:, : geo.edge].mean(axis=1), d[:, geo.iso].mean(axis=1), d[:, m - geo.edge :].mean(axis=1)],
+                       axis=1)
+    linear = d @ geo.weights - anchors @ (geo.basis @ geo.weights)
     out: dict = {}
-    out["r"] = geo.polarity * r[:, geo.r] / geo.amplitude
-    out["st"] = -r[:, geo.st].mean(axis=1)
-    if geo.waves:
-        sm = smooth_rows_same(r, int(round(0.04 * fs)))
-        for name, (index, polarity, amp) in geo.waves.items():
-            out[name] = polarity * sm[:, index] / amp
-    sl, kernel = geo.timing_kernel
-    out["timing"] = 1000.0 / fs * (r[:, sl] @ kernel)
-    ss = smooth_rows_same(r, int(round(SLOPE_SMOOTH_S * fs)))
-    sr = np.gradient(ss, axis=1)
-    if geo.width_points:
-        changes = []
-        for on, off, steep, s_on, s_off, s_steep, c_on, c_off, fraction in geo.width_points:
-            d_off = (s_off * sr[:, off] - fraction * s_steep * sr[:, steep]) / c_off
-            d_on = (s_on * sr[:, on] - fraction * s_steep * sr[:, steep]) / c_on
-            changes.append(d_off - d_on)
-        out["width"] = 1000.0 / fs * np.median(np.stack(changes, axis=1), axis=1)
-    rc = r - r.mean(axis=1, keepdims=True)
-    denom = float(geo.centred @ geo.centred)
-    out["removed"] = rc @ geo.centred / denom if denom > 0 else np.zeros(r.shape[0])
+    plain = len(geo.names) - geo.widths
+    for j, name in enumerate(geo.names[:plain]):
+        out[name] = linear[:, j]
+    if geo.widths:
+        out["width"] = np.median(linear[:, plain:], axis=1)
     # Energies from products of neighbouring beats: the noise of two beats is
     # independent, so <a_i, a_(i-1)> estimates the beat-locked energy alone.
-    rs = smooth_rows_same(r, int(round(0.02 * fs)))
-    rs = rs - rs.mean(axis=1, keepdims=True)
-    carry = {"shape": rs[-1:]}
-    parts = {"shape": rs}
+    blocks = _block_means(d, geo.block) - anchors @ geo.basis_blocks
+    blocks -= blocks.mean(axis=1, keepdims=True)
+    parts = {"shape": blocks}
     for j, flank in enumerate(geo.flanks[:2]):
-        d = detrended(r[:, flank])
-        parts[f"ring{j}"] = d
-        carry[f"ring{j}"] = d[-1:]
+        parts[f"ring{j}"] = detrended(d[:, flank] - anchors @ geo.basis[:, flank])
+    carry = {}
     for name, rows in parts.items():
         before = previous[name] if previous is not None else rows[:1]
         shifted = np.concatenate([before, rows[:-1]], axis=0)
         product = np.einsum("ij,ij->i", rows, shifted)
-        out[name] = product / rows.shape[1] if name.startswith("ring") else product / max(geo.shape_energy, 1e-300)
+        out[name] = product / rows.shape[1] if name.startswith("ring") else product * geo.block / geo.shape_energy
+        carry[name] = rows[-1:]
     return out, carry
 
 
@@ -273,9 +329,9 @@ def screen_readings(original: np.ndarray, cleaned: np.ndarray, centres: np.ndarr
     carry = None
     for start in range(0, centres.size, CHUNK_BEATS):
         part = centres[start : start + CHUNK_BEATS]
-        x = cut_windows(original, part, geo.pre, geo.post).astype(np.float64)
-        y = cut_windows(cleaned, part, geo.pre, geo.post).astype(np.float64)
-        out, carry = _chunk_readings(x, y, geo, carry)
+        d = cut_windows(original, part, geo.pre, geo.post).astype(np.float64)
+        d -= cut_windows(cleaned, part, geo.pre, geo.post)
+        out, carry = _chunk_readings(d, geo, carry)
         for name, values in out.items():
             readings.setdefault(name, []).append(values)
     return {name: np.concatenate(parts) for name, parts in readings.items()}
@@ -410,6 +466,13 @@ def assess_group(
         for metric, name in _NOISE_TO_METRIC.items():
             if name in noise:
                 allowance[metric] = max(allowance.get(metric, 0.0), k * median_se(noise[name], n))
+        # Energies: the spread of the neighbour products of the screen, for n beats.
+        ring = max((noise[name] for name in ("ring0", "ring1") if name in noise), default=0.0)
+        allowance["ringing_rms"] = max(allowance.get("ringing_rms", 0.0), float(np.sqrt(k * median_se(ring, n))))
+        if "shape" in noise:
+            allowance["beat_shape_change_energy"] = max(
+                allowance.get("beat_shape_change_energy", 0.0), k * median_se(noise["shape"], n)
+            )
         metrics = dict(measures.metrics)
         flags = [f for f in evaluate(channel, metrics, allowance, limits) if f.id in TEMPLATE_FLAG_IDS]
         start_s = max(0.0, (beats[0] - windows.pre) / fs)
@@ -448,15 +511,26 @@ def gaps(peaks: np.ndarray, fs: float, n_samples: int, pre: int, post: int) -> l
     return out
 
 
-def _window_levels(signal: np.ndarray, centres: np.ndarray, pre: int, post: int) -> np.ndarray:
-    """Median of ``signal`` over each beat window [c - pre, c + post] (clipped to the trace), chunked."""
-    offsets = np.arange(-pre, post + 1)
+def anchor_levels(signal: np.ndarray, centres: np.ndarray, pre: int, post: int, iso: slice, edge: int) -> np.ndarray:
+    """Level of each beat: the median of its three quiet anchors (first 30 ms, PQ junction, last 30 ms).
+
+    The anchors are those of the slow-trend removal (T-P segment before P,
+    isoelectric window, T-P segment after T), read on ``signal`` in the beat
+    window [c - pre, c + post], indices clipped to the trace; the median of
+    three keeps one anchor that falls on a wave from moving the level
+    (knot-based baseline, common practice). Chunked over beats.
+    """
+    m = pre + post + 1
+    cols = np.concatenate([np.arange(edge), np.arange(iso.start, iso.stop), np.arange(m - edge, m)]) - pre
+    sizes = (edge, iso.stop - iso.start, edge)
     out = np.empty(centres.size)
     last = signal.size - 1
     for start in range(0, centres.size, CHUNK_BEATS):
         part = centres[start : start + CHUNK_BEATS]
-        idx = np.clip(part[:, None] + offsets[None, :], 0, last)
-        out[start : start + part.size] = np.median(signal[idx], axis=1)
+        values = signal[np.clip(part[:, None] + cols[None, :], 0, last)].astype(np.float64)
+        a, b = sizes[0], sizes[0] + sizes[1]
+        means = np.stack([values[:, :a].mean(axis=1), values[:, a:b].mean(axis=1), values[:, b:].mean(axis=1)], axis=1)
+        out[start : start + part.size] = np.median(means, axis=1)
     return out
 
 
@@ -479,18 +553,18 @@ def baseline_excursions(
     fs: float,
     pre: int,
     post: int,
+    iso: slice,
     to_limit_unit: float,
     warn: float | None,
 ) -> Excursions:
     """How far the cleaning moved beats from their level beyond where the original had them.
 
-    For every beat, the median of its window [R - pre, R + post] in the
+    For every beat, its level (:func:`anchor_levels`) in the
     original (``Lx``) and in the cleaned trace (``Ly``), each against its
     group's median over the record (``cx``, ``cy``); the excess
     ``|Ly - cy| - |Lx - cx|`` is what the cleaning added: removing baseline
     wander the original has gives a value at or below zero, a level shift or
-    the start-up swoop of a high-pass filter a positive one. The median of a
-    beat window is a robust level (the QRS is a small part of it). Interior
+    the start-up swoop of a high-pass filter a positive one. Interior
     beats are judged through the running median over :data:`STRETCH_BEATS`
     beats; the first and last beat of the record, of each stretch between
     pauses, and the trace before the first and after the last beat window
@@ -508,8 +582,9 @@ def baseline_excursions(
     n = original.size
     if centres.size == 0 or warn is None:
         return Excursions(None, [], 0, 0, 0.0)
-    lx = _window_levels(original, centres, pre, post)
-    ly = _window_levels(cleaned, centres, pre, post)
+    edge = max(1, int(round(0.03 * fs)))
+    lx = anchor_levels(original, centres, pre, post, iso, edge)
+    ly = anchor_levels(cleaned, centres, pre, post, iso, edge)
     # The trace before the first and after the last beat window, when there is room.
     ends = []
     room = int(round(0.25 * fs))
