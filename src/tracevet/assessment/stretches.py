@@ -559,12 +559,12 @@ def baseline_excursions(
 ) -> Excursions:
     """How far the cleaning moved beats from their level beyond where the original had them.
 
-    For every beat, its level (:func:`anchor_levels`) in the
-    original (``Lx``) and in the cleaned trace (``Ly``), each against its
-    group's median over the record (``cx``, ``cy``); the excess
-    ``|Ly - cy| - |Lx - cx|`` is what the cleaning added: removing baseline
-    wander the original has gives a value at or below zero, a level shift or
-    the start-up swoop of a high-pass filter a positive one. Interior
+    For every beat, its level (:func:`anchor_levels`) in the original
+    (``Lx``) and in the cleaned trace (``Ly``); the excursion is the part of
+    the removed level ``Lx - Ly`` that no slow version of the original's own
+    level explains (:func:`unexplained_level`): near zero for a cleaning that
+    keeps, partly removes or flattens the original's baseline wander,
+    positive for a level shift or the start-up swoop of a high-pass filter. Interior
     beats are judged through the running median over :data:`STRETCH_BEATS`
     beats; the first and last beat of the record, of each stretch between
     pauses, and the trace before the first and after the last beat window
@@ -585,7 +585,10 @@ def baseline_excursions(
     edge = max(1, int(round(0.03 * fs)))
     lx = anchor_levels(original, centres, pre, post, iso, edge)
     ly = anchor_levels(cleaned, centres, pre, post, iso, edge)
-    # The trace before the first and after the last beat window, when there is room.
+    times = centres / fs
+    group = np.where(labels == 1, 1.0, 0.0)
+    # The trace before the first and after the last beat window, when there
+    # is room, enters as one more level each (median of the samples there).
     ends = []
     room = int(round(0.25 * fs))
     first_lo, last_hi = int(centres[0]) - pre, int(centres[-1]) + post + 1
@@ -593,36 +596,108 @@ def baseline_excursions(
         ends.append((0, first_lo))
     if n - last_hi >= room:
         ends.append((last_hi, n))
-    group = np.where(labels == 1, 1, 0)
-    cx, cy = np.zeros(centres.size), np.zeros(centres.size)
-    for g in (0, 1):
-        sel = group == g
-        if sel.any():
-            cx[sel], cy[sel] = np.median(lx[sel]), np.median(ly[sel])
-    excess = (np.abs(ly - cy) - np.abs(lx - cx)) * to_limit_unit
-    sigma = robust_sigma((ly - lx) * to_limit_unit)
-    allow_stretch = noise_k(STRETCH_BEATS) * median_se(sigma, STRETCH_BEATS)
-    allow_end = END_K * sigma
-    judged = running_median(excess)
+    for a, b in ends:
+        lx = np.append(lx, float(np.median(original[a:b])))
+        ly = np.append(ly, float(np.median(cleaned[a:b])))
+        times = np.append(times, (a + b) / 2.0 / fs)
+        group = np.append(group, 0.0)
+    widths = tuple(max(1, int(round(w * fs))) for w in LEVEL_SCALES_S)
+    slow = trace_means(original, np.round(times * fs).astype(np.int64), widths)
+    excess = unexplained_level(lx, ly, slow, group) * to_limit_unit
+    n_beats = centres.size
+    sigma = robust_sigma(excess[:n_beats])
+    # Beyond what the interior shows: the residual's own robust spread over
+    # the record (LEVEL_K robust s.d.) also bounds the allowance.
+    spread = LEVEL_K * MAD_TO_SD * float(np.median(excess[:n_beats]))
+    allow_stretch = max(noise_k(STRETCH_BEATS) * median_se(sigma, STRETCH_BEATS), spread)
+    allow_end = max(END_K * sigma, spread)
+    judged = running_median(excess[:n_beats])
     beyond = judged > max(warn, allow_stretch)
-    values = [float(np.max(judged))] if judged.size else []
+    values = [float(np.max(judged))]
     # Ends: the first and last beat of the record and of every stretch between pauses.
-    rr = float(np.median(np.diff(centres))) if centres.size > 1 else n
+    rr = float(np.median(np.diff(centres))) if n_beats > 1 else n
     pause = np.flatnonzero(np.diff(centres) > max(GAP_MIN_S * fs, GAP_RR * rr))
-    end_beats = np.unique(np.concatenate([[0, centres.size - 1], pause, pause + 1]))
+    end_beats = np.unique(np.concatenate([[0, n_beats - 1], pause, pause + 1]))
     end_hit = excess[end_beats] > max(warn, allow_end)
     beyond[end_beats[end_hit]] = True
     values.append(float(np.max(excess[end_beats])))
     spans = [((int(c) - pre) / fs, (int(c) + post) / fs) for c in centres[beyond]]
-    for a, b in ends:
-        level_x, level_y = float(np.median(original[a:b])), float(np.median(cleaned[a:b]))
-        near = 0 if a == 0 else centres.size - 1
-        e = (abs(level_y - cy[near]) - abs(level_x - cx[near])) * to_limit_unit
+    for j, (a, b) in enumerate(ends):
+        e = float(excess[n_beats + j])
         values.append(e)
         if e > max(warn, allow_end):
             spans.append((a / fs, b / fs))
     spans = [(max(0.0, a), min(n / fs, b)) for a, b in spans]
-    return Excursions(max(values), spans, int(np.sum(beyond)), int(centres.size), max(allow_stretch, 0.0))
+    return Excursions(max(values), spans, int(np.sum(beyond)), int(n_beats), max(allow_stretch, 0.0))
+
+
+# Robust s.d. of the unexplained level over the record an excursion must exceed (common practice).
+LEVEL_K = 4.0
+# Time scales (s) of the slow content of the original a cleaning may remove.
+LEVEL_SCALES_S = (2.0, 8.0, 32.0)
+
+
+def trace_means(signal: np.ndarray, at: np.ndarray, widths: tuple, chunk: int = 1 << 20) -> np.ndarray:
+    """Mean of ``signal`` over [i - w/2, i + w/2) (clipped to the trace) at every sample ``at``, for each width w.
+
+    From a cumulative sum accumulated chunk by chunk, read only where it is
+    needed, so a 24-hour trace needs no full-length copy. Returns an array
+    ``(at.size, len(widths))``.
+    """
+    n = signal.size
+    at = np.asarray(at, dtype=np.int64)
+    lo = np.clip(at[:, None] - np.asarray(widths)[None, :] // 2, 0, n)
+    hi = np.clip(lo + np.asarray(widths)[None, :], 0, n)
+    points = np.concatenate([lo.ravel(), hi.ravel()])
+    order = np.argsort(points, kind="stable")
+    sorted_points = points[order]
+    values = np.empty(points.size)
+    total = 0.0
+    first = 0
+    for start in range(0, n, chunk):
+        part = np.cumsum(signal[start : start + chunk], dtype=np.float64)
+        last = int(np.searchsorted(sorted_points, start + part.size, side="left"))
+        idx = sorted_points[first:last] - start  # csum[i] = sum of signal[:i]
+        values[order[first:last]] = total + np.where(idx > 0, part[np.maximum(idx - 1, 0)], 0.0)
+        total += float(part[-1])
+        first = last
+    values[order[first:]] = total
+    sums = values[points.size // 2 :].reshape(hi.shape) - values[: points.size // 2].reshape(lo.shape)
+    return sums / np.maximum(hi - lo, 1)
+
+
+def unexplained_level(lx: np.ndarray, ly: np.ndarray, slow: np.ndarray, group: np.ndarray) -> np.ndarray:
+    """The part of the removed level ``lx - ly`` that no slow version of the original's level explains.
+
+    A cleaning that removes baseline wander takes out a slow (low-passed)
+    version of the original, whatever its cutoff: nothing, part or all of
+    it. The removed level is fitted by least squares on the original's level
+    itself and the moving means of the original trace (``slow``, one column
+    per time scale, beats included: a high-pass also takes out the beats'
+    own mean) plus a constant and a constant for the second morphology group, with
+    refits without the beats whose residual is beyond 2.5 robust s.d. until
+    the set settles (robust regression by trimming, common practice). A level shift or a
+    start-up swoop the cleaning added is not in the original and stays in
+    the residual, which is returned (absolute value, record units).
+    """
+    columns = [np.ones_like(lx), lx] + [slow[:, j] for j in range(slow.shape[1])]
+    if np.any(group > 0):
+        columns.append(group)
+    design = np.stack(columns, axis=1)
+    target = lx - ly
+    keep = np.ones(target.size, dtype=bool)
+    residual = target - np.median(target)
+    for _ in range(6):
+        if keep.sum() <= 2 * design.shape[1]:
+            break
+        coef, *_ = np.linalg.lstsq(design[keep], target[keep], rcond=None)
+        residual = target - design @ coef
+        spread = MAD_TO_SD * float(np.median(np.abs(residual[keep])))
+        new_keep = np.abs(residual) <= 2.5 * spread if spread > 0 else keep
+        if np.array_equal(new_keep, keep):
+            break
+        keep = new_keep
+    return np.abs(residual)
 
 
 def excursion_flag(channel: str, exc: Excursions, limits: Limits, amp_unit: str) -> Flag | None:
