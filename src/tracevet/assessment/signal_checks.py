@@ -152,8 +152,11 @@ def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tupl
     * peak-to-peak after a 40 ms moving average (against noise) and the
       window's straight line removed: the bend of a slower transient.
 
-    A slow offset or straight ramp at an edge (a baseline high-pass
-    settling) changes no beat's shape and does not count. Electrode motion and wander inside
+    A slow offset or straight ramp at an edge changes no beat's shape and
+    is not counted here; it moves the beats off their level, which the
+    baseline-excursion check judges
+    (:func:`tracevet.assessment.stretches.baseline_excursions`), so a
+    high-pass settling at an edge is flagged there. Electrode motion and wander inside
     the record are removed as steeply as at an edge, hence the reference at
     the top of the interior rather than its typical value. A cleaning that
     behaves at the edges as inside gives a value at or below zero (common

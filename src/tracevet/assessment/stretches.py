@@ -634,7 +634,7 @@ def baseline_excursions(
 # Robust s.d. of the unexplained level over the record an excursion must exceed (common practice).
 LEVEL_K = 4.0
 # Time scales (s) of the slow content of the original a cleaning may remove.
-LEVEL_SCALES_S = (2.0, 8.0, 32.0)
+LEVEL_SCALES_S = (1.0, 2.0, 4.0, 8.0, 16.0, 32.0)
 
 
 def trace_means(signal: np.ndarray, at: np.ndarray, widths: tuple, chunk: int = 1 << 20) -> np.ndarray:
@@ -674,27 +674,41 @@ def unexplained_level(lx: np.ndarray, ly: np.ndarray, slow: np.ndarray, group: n
     it. The removed level is fitted by least squares on the original's level
     itself and the moving means of the original trace (``slow``, one column
     per time scale, beats included: a high-pass also takes out the beats'
-    own mean) plus a constant and a constant for the second morphology group, with
-    refits without the beats whose residual is beyond 2.5 robust s.d. until
-    the set settles (robust regression by trimming, common practice). A level shift or a
+    own mean) plus a constant and a constant for the second morphology group,
+    weights >= 0 (non-negative least squares), refitted without the beats
+    whose residual is beyond 2.5 robust s.d. until the set settles (robust
+    regression by trimming, common practice). A level shift or a
     start-up swoop the cleaning added is not in the original and stays in
     the residual, which is returned (absolute value, record units).
     """
-    columns = [np.ones_like(lx), lx] + [slow[:, j] for j in range(slow.shape[1])]
+    from scipy.optimize import nnls
+
+    # Each slow version enters with a weight >= 0 (a cleaning removes a
+    # fraction of the original's slow content, never its opposite): the
+    # weights stay bounded although the columns are nearly collinear
+    # (non-negative least squares, Lawson & Hanson 1974). The constants
+    # (overall and second group) take either sign.
+    ones = np.ones_like(lx)
+    columns = [ones, -ones, lx - np.median(lx)] + [slow[:, j] - np.median(slow[:, j]) for j in range(slow.shape[1])]
     if np.any(group > 0):
-        columns.append(group)
+        columns += [group, -group]
     design = np.stack(columns, axis=1)
     target = lx - ly
+    scale = np.maximum(np.abs(design).max(axis=0), 1e-300)
+    design = design / scale
     keep = np.ones(target.size, dtype=bool)
     residual = target - np.median(target)
+    spread0 = MAD_TO_SD * float(np.median(np.abs(residual)))
+    if spread0 > 0:
+        keep = np.abs(residual) <= 2.5 * spread0 if np.sum(np.abs(residual) <= 2.5 * spread0) > 8 else keep
     for _ in range(6):
-        if keep.sum() <= 2 * design.shape[1]:
+        if keep.sum() <= 8:
             break
-        coef, *_ = np.linalg.lstsq(design[keep], target[keep], rcond=None)
+        coef, _ = nnls(design[keep], target[keep])
         residual = target - design @ coef
         spread = MAD_TO_SD * float(np.median(np.abs(residual[keep])))
         new_keep = np.abs(residual) <= 2.5 * spread if spread > 0 else keep
-        if np.array_equal(new_keep, keep):
+        if np.array_equal(new_keep, keep) or new_keep.sum() <= 8:
             break
         keep = new_keep
     return np.abs(residual)
