@@ -970,9 +970,9 @@ def cli_contract(quick: bool) -> list[str]:
             if not isinstance(doc, dict) or set(doc) != {"metrics", "flags"}:
                 problems.append(f"{label}: keys {sorted(doc) if isinstance(doc, dict) else type(doc)}")
                 continue
-            bad_flag = [f for f in doc["flags"] if set(f) != {"id", "severity", "message", "value", "limit", "source", "where", "where_more",
-                                                     "beats_affected", "beats_measured"}
-                        or f["severity"] not in ("warn", "fail")]
+            flag_keys = {"id", "severity", "message", "value", "limit", "source", "where", "where_more",
+                         "beats_affected", "beats_measured"}
+            bad_flag = [f for f in doc["flags"] if set(f) != flag_keys or f["severity"] not in ("warn", "fail")]
             if bad_flag:
                 problems.append(f"{label}: malformed flag {bad_flag[0]}")
             want = 1 if any(f["severity"] == "fail" for f in doc["flags"]) else 0

@@ -51,7 +51,7 @@ def queue_template(tmp_path_factory) -> Path:
         files.append(path)
     # dive-c is cleaned with a 5 Hz baseline high-pass, far above the usual 0.05-0.67 Hz (common
     # practice for ST-segment fidelity), so it carries fail flags like a damaging run would.
-    harsh = CleaningSettings.from_dict(dict(DEFAULT_SETTINGS.to_dict(), baseline_cutoff_hz=5.0))
+    harsh = CleaningSettings.from_dict(dict(DEFAULT_SETTINGS.to_dict(), baseline="butterworth", baseline_cutoff_hz=5.0))
     for record_id in queue.add_files(files, added_by="setup"):
         queue.add_run(record_id, harsh if record_id == "dive-c" else DEFAULT_SETTINGS)
     assert queue.record("dive-c").worst_severity == "fail"
@@ -190,7 +190,7 @@ async def test_second_reviewer_sees_the_first_ones_claim_read_only(queue_dir):
             await wait_for(pilot_b, lambda: record_ready(second))
             assert second.screen.record_id == held
             assert second.screen.read_only
-            assert "READ-ONLY held by mira" in screen_text(second)
+            assert "READ-ONLY mira" in screen_text(second)
             await pilot_b.press("a")  # refused: no prompt, nothing written
             await pilot_b.pause(0.1)
             assert isinstance(second.screen, RecordScreen)
@@ -412,7 +412,7 @@ async def test_a_lapsed_claim_taken_over_turns_the_open_record_read_only(queue_d
         claim_file.write_text(json.dumps(claim))
         Queue.open(queue_dir).claim(record_id, "jonas", bind_process=False)  # the take-over is logged
         app.touch_held_claim()
-        await wait_for(pilot, lambda: "READ-ONLY held by jonas" in screen_text(app))
+        await wait_for(pilot, lambda: "READ-ONLY jonas" in screen_text(app))
         await pilot.press("a")
         await pilot.pause(0.1)
         assert isinstance(app.screen, RecordScreen)  # no note prompt: nothing can be decided

@@ -54,7 +54,8 @@ def test_whole_record_damage_lists_the_whole_record(scaled):
 def test_stored_assessment_keeps_stretches_and_old_files_load(scaled, tmp_path):
     scaled.save(tmp_path)
     back = Assessment.load(tmp_path)
-    assert [f.where for f in back.flags] == [tuple((round(a, 3), round(b, 3)) for a, b in f.where) for f in scaled.flags]
+    rounded = [tuple((round(a, 3), round(b, 3)) for a, b in f.where) for f in scaled.flags]
+    assert [f.where for f in back.flags] == rounded
     assert [f.beats_affected for f in back.flags] == [f.beats_affected for f in scaled.flags]
     # An assessment.json written before the stretches existed loads with the defaults.
     path = tmp_path / "assessment.json"

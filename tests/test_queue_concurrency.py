@@ -25,13 +25,15 @@ def _worker(root: str, reviewer: str, record_ids: list[str], seed: int, results)
         except ClaimedByOther:
             # deciding without the claim must be refused while another reviewer holds it
             try:
-                queue.decide(record_id, "rerun", "tried without a claim", reviewer)
+                queue.decide(record_id, "rerun", "tried without a claim", reviewer, override=True)
             except ClaimedByOther:
                 refused += 1
                 continue
             made += 1
             continue
-        entry = queue.decide(record_id, rng.choice(["accept", "reject", "rerun"]), f"note {made}", reviewer)
+        # colleagues deciding over each other on purpose: the chain must hold through overrides
+        decision = rng.choice(["accept", "reject", "rerun"])
+        entry = queue.decide(record_id, decision, f"note {made}", reviewer, override=True)
         intervals.append((record_id, claim.since, entry.time))
         made += 1
     results.put((reviewer, made, refused, intervals))

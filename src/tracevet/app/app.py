@@ -8,11 +8,9 @@ from pathlib import Path
 from textual.app import App
 from textual.binding import Binding
 
-from tracevet.errors import TracevetError
-from tracevet.text import inert
-
-from tracevet.app.display import CAUTION  # noqa: F401 - re-exported for the CLI
 from tracevet.app.worklist_screen import WorklistScreen
+from tracevet.errors import TracevetError
+from tracevet.workqueue import ClaimedByOther, Queue
 
 
 # How often an open record's claim is refreshed while the reviewer works on it.
@@ -41,7 +39,7 @@ class ReviewApp(App):
     ]
     KEY_HELP = {"help": "this help (keys of the screen you are on)", "quit": "quit from anywhere"}
 
-    def __init__(self, queue, reviewer: str, colour: bool | None = None):
+    def __init__(self, queue: Queue, reviewer: str, colour: bool | None = None):
         super().__init__()
         self.queue = queue
         self.reviewer = reviewer
@@ -90,14 +88,24 @@ class ReviewApp(App):
             return
         try:
             self.queue.touch_claim(self.held_claim, self.reviewer)
-        except TracevetError as exc:
+        except ClaimedByOther as exc:
             self.held_claim = None
-            holder = getattr(exc, "holder", None)
-            who = holder.describe() if holder is not None and hasattr(holder, "describe") else "another reviewer"
             lose = getattr(self.screen, "lose_claim", None)
             if lose is not None:
-                lose(who)
-            self.notify(f"this record was taken over: {inert(who, 120)}", severity="error", timeout=10)
+                lose(exc.holder)
+            self.notify(f"this record was taken over: {exc.holder.describe()}", severity="error", timeout=10)
+        except TracevetError as exc:
+            self.notify(f"could not refresh the claim: {exc.one_line()}", severity="warning")
+
+    def open_record(self, record_id: str, replace: bool = False) -> None:
+        """Show one record (claiming it, or read-only); ``replace`` swaps it for the screen on top."""
+        from tracevet.app.record_screen import RecordScreen
+
+        screen = RecordScreen(record_id)
+        if replace:
+            self.switch_screen(screen)
+        else:
+            self.push_screen(screen)
 
     def on_unmount(self) -> None:
         """Leave nothing claimed behind."""

@@ -16,10 +16,6 @@ from rich.text import Text
 
 from tracevet.text import inert
 
-CAUTION = (
-    "tracevet is not a medical device and does not diagnose; its flags support but never "
-    "replace review by qualified staff; follow local regulations and institutional protocols."
-)
 
 # Okabe & Ito (2008) colour-blind safe palette; every severity also has a
 # word and a symbol, so nothing depends on colour alone.

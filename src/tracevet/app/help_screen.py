@@ -10,7 +10,7 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
-from tracevet.app.display import CAUTION
+from tracevet.caution import CAUTION
 
 
 def _keys(binding: Binding) -> str:

@@ -20,6 +20,30 @@ from tracevet.app.display import (
 PANELS = ("flags", "metrics", "run", "compare")
 
 
+def fit_by_priority(parts: list[tuple[int, Text]], width: int, gap: str = "  ") -> Text:
+    """Join ``(priority, text)`` parts in their given order, dropping the least important that do not fit.
+
+    Parts are admitted by priority (0 first) while the line stays within
+    ``width`` cells; the admitted parts keep their original order. The part
+    of priority 0 is always kept (cut with an ellipsis if it alone is too long).
+    """
+    chosen: set[int] = set()
+    used = 0
+    for index in sorted(range(len(parts)), key=lambda i: parts[i][0]):
+        cost = parts[index][1].cell_len + (len(gap) if chosen else 0)
+        if used + cost <= width or not chosen:
+            chosen.add(index)
+            used += cost
+    line = Text(no_wrap=True, overflow="ellipsis")
+    for index, (_, part) in enumerate(parts):
+        if index in chosen:
+            if len(line):
+                line.append(gap)
+            line.append_text(part)
+    line.truncate(max(width, 1), overflow="ellipsis")
+    return line
+
+
 def panel_tabs(current: str, has_compare: bool) -> Text:
     """The one-line tab strip above the panel, the current one highlighted."""
     text = Text(no_wrap=True, overflow="ellipsis")

@@ -18,6 +18,9 @@ MAX_NOTE_CHARS = 2000
 class NoteScreen(ModalScreen[str | None]):
     """Ask for the decision's note; refuse an empty one when a note is required.
 
+    ``previous`` (one line) shows the record's last decision, so an earlier
+    colleague's verdict and note are in view while typing.
+
     Dismisses with the note (possibly empty when optional), or None when
     cancelled.
     """
@@ -26,8 +29,11 @@ class NoteScreen(ModalScreen[str | None]):
     BINDINGS = [Binding("escape", "cancel", "Cancel")]
     KEY_HELP = {"cancel": "cancel: nothing is written (enter writes the decision)"}
 
-    def __init__(self, decision: str, record_id: str, run_label: str, required_reason: str = "") -> None:
+    def __init__(
+        self, decision: str, record_id: str, run_label: str, required_reason: str = "", previous: Text | None = None
+    ) -> None:
         super().__init__()
+        self.previous = previous
         self.decision = decision
         self.record_id = record_id
         self.run_label = run_label
@@ -46,6 +52,8 @@ class NoteScreen(ModalScreen[str | None]):
                 ),
                 id="note-summary",
             )
+            if self.previous is not None:
+                yield Static(self.previous, id="note-previous")
             need = self.required_reason or "note (optional): a few words on why"
             yield Static(Text(need, style="bold" if self.required_reason else "dim"), id="note-need")
             yield Input(placeholder="note", id="note-input", max_length=MAX_NOTE_CHARS)

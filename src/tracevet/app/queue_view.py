@@ -7,86 +7,122 @@ pure functions can be tested without a terminal.
 
 from __future__ import annotations
 
+from datetime import datetime, timezone
 from dataclasses import dataclass, field
 
 from rich.text import Text
 
 from tracevet.app.display import SEVERITY_RANK, inert_text, severity_key
 from tracevet.app.plots import Regions, TracePyramids
+from tracevet.assessment import Assessment
+from tracevet.recording import Recording
+from tracevet.workqueue import DECIDED_STATES, REVIEW_STATES, Claim, LastDecision, Queue, RecordSummary, RunInfo
 
-# States of tracevet.workqueue records, as the worklist groups them.
-DECIDED_STATES = ("accepted", "rejected", "sent-back")
-REVIEW_STATES = ("to-review", "in-review")
-
-
-def holder_name(holder) -> str | None:
-    """The reviewer holding a record (from a claim object, a dict or a name), or None."""
-    if holder is None or holder == "":
-        return None
-    for attr in ("reviewer", "name"):
-        if hasattr(holder, attr):
-            return str(getattr(holder, attr))
-    if isinstance(holder, dict):
-        return str(holder.get("reviewer", ""))
-    return str(holder)
+__all__ = ["DECIDED_STATES", "REVIEW_STATES"]
 
 
-def holder_label(record) -> str:
+def holder_name(holder: Claim | None) -> str | None:
+    """The reviewer holding a record, or None."""
+    return None if holder is None else holder.reviewer
+
+
+def holder_label(record: RecordSummary) -> str:
     """Holder for the worklist column: the reviewer, marked ``(idle)`` when the claim may be taken over."""
-    name = holder_name(getattr(record, "holder", None))
+    name = holder_name(record.holder)
     if not name:
         return ""
-    return f"{name} (idle)" if getattr(record, "holder_stale", False) else name
+    return f"{name} (idle)" if record.holder_stale else name
 
 
-def record_detail(record) -> Text:
+def age_text(time_text: str, now: datetime | None = None) -> str:
+    """How long ago an ISO UTC time was: ``just now``, ``12 min ago``, ``3 h ago``, ``2 d ago``."""
+    try:
+        then = datetime.fromisoformat(str(time_text).replace("Z", "+00:00"))
+    except ValueError:
+        return str(time_text)[:16].replace("T", " ")
+    if then.tzinfo is None:
+        then = then.replace(tzinfo=timezone.utc)
+    seconds = ((now or datetime.now(timezone.utc)) - then).total_seconds()
+    if seconds < 60:
+        return "just now"
+    if seconds < 3600:
+        return f"{seconds / 60:.0f} min ago"
+    if seconds < 86400 * 2:
+        return f"{seconds / 3600:.0f} h ago"
+    return f"{seconds / 86400:.0f} d ago"
+
+
+DECISION_STYLE = {"accept": "bold", "reject": "bold reverse", "rerun": "bold underline"}
+
+
+def decision_text(last: LastDecision | None, note_chars: int = 200) -> Text:
+    """One inert line about a decision: word, who, run, when, entry, overridden entry, note.
+
+    ``note_chars`` 0 leaves the note out.
+    """
+    text = Text(no_wrap=True, overflow="ellipsis")
+    if last is None:
+        text.append("no decision yet", style="dim")
+        return text
+    text.append("last: ", style="dim")
+    text.append_text(inert_text(last.past_tense, 24, style=DECISION_STYLE.get(last.decision, "bold")))
+    text.append(" by ", style="dim")
+    text.append_text(inert_text(last.reviewer, 30, style="bold"))
+    text.append(" ")
+    text.append(age_text(last.time))
+    text.append(" on ", style="dim")
+    text.append_text(inert_text(last.run, 20))
+    text.append(f" (entry {last.seq}", style="dim")
+    if last.overrides:
+        text.append(", overrode ", style="dim")
+        text.append_text(inert_text(last.overrides.get("reviewer"), 20))
+        text.append(f" #{inert_text(last.overrides.get('seq'), 8).plain}", style="dim")
+    text.append(")", style="dim")
+    if last.note and note_chars > 0:
+        text.append("  ")
+        text.append_text(inert_text(f"\u201c{last.note}\u201d", note_chars, style="italic"))
+    return text
+
+
+def record_detail(record: RecordSummary | None) -> Text:
     """Three inert lines about a record: file it came from and holder; last decision; its note."""
     if record is None:
         return Text("")
     text = Text(no_wrap=True, overflow="ellipsis")
     text.append_text(inert_text(record.id, 30, style="bold"))
-    source = getattr(record, "source_name", "")
-    if source:
+    if record.source_name:
         text.append(" from ", style="dim")
-        text.append_text(inert_text(source, 60))
-    holder = getattr(record, "holder", None)
-    if holder is not None:
+        text.append_text(inert_text(record.source_name, 60))
+    if record.holder is not None:
         text.append("  held by ", style="dim")
-        text.append_text(inert_text(holder.describe() if hasattr(holder, "describe") else holder_name(holder), 80))
+        text.append_text(inert_text(record.holder.describe(), 80))
     text.append("\n")
-    last = getattr(record, "last_decision", None)
-    if isinstance(last, dict) and last:
-        text.append("last: ", style="dim")
-        text.append_text(inert_text(last.get("decision"), 10, style="bold"))
-        text.append(" by ", style="dim")
-        text.append_text(inert_text(last.get("reviewer"), 30))
-        text.append(" on ", style="dim")
-        text.append_text(inert_text(last.get("run"), 20))
-        text.append("  ")
-        text.append_text(inert_text(str(last.get("time", ""))[:16].replace("T", " "), 16, style="dim"))
-        text.append("\nnote: ", style="dim")
-        text.append_text(inert_text(last.get("note") or "-", 200))
-    else:
+    last = record.last
+    if last is None:
         text.append("no decision yet", style="dim")
+        return text
+    text.append_text(decision_text(last, note_chars=0))
+    text.append("\nnote: ", style="dim")
+    text.append_text(inert_text(last.note or "-", 200))
     return text
 
 
-def queue_name(queue) -> str:
+def queue_name(queue: Queue) -> str:
     """The queue's folder, for the status line."""
-    return str(getattr(queue, "root", getattr(queue, "path", "")))
+    return str(queue.root)
 
 
-def is_decided(record) -> bool:
+def is_decided(record: RecordSummary) -> bool:
     """True when the record's current state is a final decision."""
-    return str(record.state) in DECIDED_STATES
+    return record.state in DECIDED_STATES
 
 
-def matches_filter(record, chosen: str) -> bool:
+def matches_filter(record: RecordSummary, chosen: str) -> bool:
     """Whether ``record`` passes the worklist filter ``chosen``."""
     if chosen == "to review":
-        return str(record.state) in REVIEW_STATES
+        return record.state in REVIEW_STATES
     if chosen == "flagged":
-        return (record.n_flags or 0) > 0
+        return record.n_flags > 0
     if chosen == "decided":
         return is_decided(record)
     return True
@@ -114,31 +150,24 @@ def sort_records(records: list, order: str) -> list:
     )
 
 
-def last_decision_word(record) -> str:
-    """The last decision's word (``accept``, ``reject``, ``rerun``) or an empty string."""
-    last = getattr(record, "last_decision", None)
-    if not last:
-        return ""
-    if isinstance(last, dict):
-        return str(last.get("decision") or "")
-    return str(last)
+def last_decision_cell(record: RecordSummary) -> str:
+    """The worklist's ``last`` cell: decision word and who (``reject mira``), or empty."""
+    last = record.last
+    return "" if last is None else f"{last.decision} {last.reviewer}"
 
 
-def next_record(queue, reviewer: str) -> str | None:
+def next_record(queue: Queue, reviewer: str) -> str | None:
     """Id of the next record this reviewer should review, or None."""
-    found = queue.next_for_review(reviewer)
-    if found is None:
-        return None
-    return str(getattr(found, "id", found))
+    return queue.next_for_review(reviewer)
 
 
 @dataclass
 class RunData:
     """One run of a record, loaded: its info, cleaned recording, assessment, plot pyramids."""
 
-    info: object
-    cleaned: object
-    assessment: object
+    info: RunInfo
+    cleaned: Recording
+    assessment: Assessment
     pyramids: dict = field(default_factory=dict)
     regions: dict = field(default_factory=dict)
 
@@ -148,7 +177,7 @@ class RunData:
         return str(self.info.run_id)
 
 
-def load_run(queue, record_id: str, info) -> RunData:
+def load_run(queue: Queue, record_id: str, info: RunInfo) -> RunData:
     """Load one run (cleaned recording and assessment) from the queue."""
     cleaned, assessment = queue.load_run(record_id, info.run_id)
     return RunData(info, cleaned, assessment)

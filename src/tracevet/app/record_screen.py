@@ -7,17 +7,22 @@ from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
+from textual.reactive import var
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
 from tracevet.app import info_text, queue_view
 from tracevet.app.display import SEVERITY_STYLE, SEVERITY_SYMBOL, format_duration, inert_text, severity_text
 from tracevet.app.plots import CANVAS_OFFSET, format_clock, format_value, render_beat_overlay, render_trace_plots
-from tracevet.app.record_decisions import DecisionActions
+from tracevet.app.record_decisions import DECISION_ACTIONS, DecisionActions
 from tracevet.errors import TracevetError
+from tracevet.recording import Recording
+from tracevet.workqueue import Claim, ClaimedByOther, RecordSummary, RunInfo
 
 DEFAULT_SPAN_S = 10.0
 MIN_SPAN_S = 0.5
+# How often a read-only record asks the queue whether its holder has let go.
+FOLLOW_SECONDS = 2.0
 PLOT_NAMES = ("original", "cleaned", "removed")
 PLOT_LABELS = {
     "original": "orig",
@@ -26,13 +31,7 @@ PLOT_LABELS = {
     "beat": "beats",
     "beat difference": "o - c",
 }
-
-
-def _claim_error_holder(exc: Exception) -> str:
-    holder = getattr(exc, "holder", None)
-    if holder is not None and hasattr(holder, "describe"):
-        return holder.describe()
-    return queue_view.holder_name(holder) or "another reviewer"
+READ_ONLY_NAME_CHARS = 12
 
 
 class RecordScreen(DecisionActions, Screen):
@@ -82,31 +81,79 @@ class RecordScreen(DecisionActions, Screen):
         "back": "back to the worklist (releases the record)",
     }
 
+    # View state: Textual reactive attributes; their watchers redraw what depends on them.
+    channel: var[int] = var(0, init=False)
+    view: var[str] = var("traces", init=False)
+    panel: var[str] = var("flags", init=False)
+    shown_run_id: var[str | None] = var(None, init=False)
+    start_s: var[float] = var(0.0, init=False)
+    span_s: var[float] = var(DEFAULT_SPAN_S, init=False)
+    read_only: var[bool] = var(False, init=False)
+
     def __init__(self, record_id: str) -> None:
         super().__init__()
         self.record_id = record_id
-        self.read_only = False
-        self.holder_text = ""
-        self.original = None
-        self.runs: list = []
+        self.holder: Claim | None = None
+        self.summary: RecordSummary | None = None
+        self.original: Recording | None = None
+        self.runs: list[RunInfo] = []
         self.loaded: dict[str, queue_view.RunData] = {}
         self.current_run_id: str | None = None
-        self.shown_run_id: str | None = None
         self.previous_run_id: str | None = None
-        self.channel = 0
-        self.start_s = 0.0
-        self.span_s = DEFAULT_SPAN_S
-        self.view = "traces"
-        self.panel = "flags"
-        self.state = ""
-        self.source_name = ""
         self.last_plots = None
-        self._panel_key = None
+        self._panel_key: tuple | None = None
+        self._redraw_pending = False
+
+    @property
+    def holder_text(self) -> str:
+        """Who holds the record when it is read-only (one inert line)."""
+        return self.holder.describe() if self.holder is not None else "another reviewer"
+
+    @property
+    def state(self) -> str:
+        """The record's state when it was last read from the queue."""
+        return str(self.summary.state) if self.summary is not None else ""
+
+    # -- reactive view state ------------------------------------------
+    def _watch_redraw(self) -> None:
+        self.request_redraw()
+
+    watch_channel = watch_view = watch_shown_run_id = watch_start_s = watch_span_s = _watch_redraw
+
+    def watch_panel(self) -> None:
+        """A new lower panel: fill it."""
+        if self.shown_run is not None and self.is_mounted:
+            self.update_panel()
+
+    def watch_read_only(self) -> None:
+        """Locked or unlocked: the title badge and the decision keys follow."""
+        if self.is_mounted:
+            self.update_title()
+            self.refresh_bindings()
+
+    def request_redraw(self) -> None:
+        """Redraw once after the current batch of changes (several attributes may change together)."""
+        if self._redraw_pending or not self.is_mounted:
+            return
+        self._redraw_pending = True
+
+        def run() -> None:
+            self._redraw_pending = False
+            self.redraw()
+
+        self.call_later(run)
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Decision keys are shown disabled (and do nothing) while read-only or without a run."""
+        if action in DECISION_ACTIONS and (self.read_only or self.shown_run is None):
+            return None
+        return True
 
     # -- layout -------------------------------------------------------
     def compose(self) -> ComposeResult:
-        """Title line, window line, the plot stack, the panel, the key footer."""
+        """Title line, last decision, window line, the plot stack, the panel, the key footer."""
         yield Static(id="record-title")
+        yield Static(id="decision-line")
         yield Static(id="window-line")
         with Vertical(id="plots"):
             for name in PLOT_NAMES:
@@ -122,13 +169,14 @@ class RecordScreen(DecisionActions, Screen):
         self.query_one("#record-title", Static).update(Text.assemble("loading record ", inert_text(self.record_id, 40)))
         try:
             self.app.claim(self.record_id)
-        except TracevetError as exc:
-            if type(exc).__name__ != "ClaimedByOther":
-                self.give_up(exc.one_line())
-                return
+        except ClaimedByOther as exc:
+            self.holder = exc.holder
             self.read_only = True
-            self.holder_text = _claim_error_holder(exc)
             self.notify(f"read-only: {self.holder_text}", timeout=6)
+        except TracevetError as exc:
+            self.give_up(exc.one_line())
+            return
+        self.set_interval(FOLLOW_SECONDS, self.follow_holder)
         self.load_record()
 
     def give_up(self, message: str) -> None:
@@ -139,11 +187,48 @@ class RecordScreen(DecisionActions, Screen):
         if self.is_current:
             self.app.pop_screen()
 
-    def lose_claim(self, holder_text: str) -> None:
+    def lose_claim(self, holder: Claim) -> None:
         """Another reviewer took the record over: continue read-only."""
+        self.holder = holder
         self.read_only = True
-        self.holder_text = holder_text
-        self.update_title()
+
+    def follow_holder(self) -> None:
+        """While read-only, follow the queue: when the holder decides or lets go, say so and unlock.
+
+        Reads one small claim file every :data:`FOLLOW_SECONDS`; the record is
+        claimed for this reviewer as soon as nobody holds it any more (or the
+        holder's claim may be taken over).
+        """
+        if not self.read_only or self.app.held_claim is not None or not self.is_current:
+            return
+        queue = self.app.queue
+        try:
+            holder = queue.holder(self.record_id)
+            if holder is not None and holder.reviewer != self.app.reviewer:
+                if holder.takeover_reason(queue.settings.claim_idle_minutes) is None:
+                    self.holder = holder
+                    return
+            before = self.summary.last if self.summary is not None else None
+            self.app.claim(self.record_id)
+            summary = queue.record(self.record_id)
+        except ClaimedByOther as exc:
+            self.holder = exc.holder
+            return
+        except TracevetError:
+            return  # tried again at the next tick
+        who = self.holder.reviewer if self.holder is not None else "the other reviewer"
+        after = summary.last
+        if after is not None and (before is None or after.seq != before.seq):
+            message = f"{who} {after.past_tense} this record; it is yours to review now"
+        else:
+            message = f"{who} let go of this record; it is yours to review now"
+        self.holder = None
+        self.summary = summary
+        self.read_only = False
+        self.update_decision_line()
+        self.notify(message, timeout=8)
+        if summary.n_runs != len(self.runs):
+            self.load_record()  # the holder made a run meanwhile
 
     @work(thread=True, exclusive=True, group="load")
     def load_record(self) -> None:
@@ -158,7 +243,7 @@ class RecordScreen(DecisionActions, Screen):
         summary = queue.record(self.record_id)
         original = queue.load_original(self.record_id)
         runs = list(queue.runs(self.record_id))
-        current = getattr(summary, "current_run_id", None) or (runs[-1].run_id if runs else None)
+        current = summary.current_run_id or (runs[-1].run_id if runs else None)
         loaded = {}
         if current is not None:
             info = next(r for r in runs if str(r.run_id) == str(current))
@@ -168,16 +253,19 @@ class RecordScreen(DecisionActions, Screen):
         self.app.call_from_thread(self.record_loaded, summary, original, runs, current, loaded)
 
     def record_loaded(self, summary, original, runs, current, loaded) -> None:
-        """Show the freshly loaded record."""
+        """Show the freshly loaded record (keeping the window when the same record is loaded again)."""
+        first = self.original is None
         self.original = original
         self.runs = runs
         self.loaded.update(loaded)
+        self.summary = summary
         self.current_run_id = str(current) if current is not None else None
+        if first:
+            self.span_s = min(DEFAULT_SPAN_S, original.duration_s)
+            self.start_s = 0.0
         self.shown_run_id = self.current_run_id
-        self.state = str(getattr(summary, "state", ""))
-        self.source_name = str(getattr(summary, "source_name", "") or "")
-        self.span_s = min(DEFAULT_SPAN_S, original.duration_s)
-        self.start_s = 0.0
+        self.update_decision_line()
+        self.refresh_bindings()
         self.redraw()
 
     @property
@@ -217,34 +305,40 @@ class RecordScreen(DecisionActions, Screen):
         self.app.call_from_thread(self.redraw)
 
     def update_title(self) -> None:
-        """Record id, channel, run, state and claim holder."""
-        title = Text(no_wrap=True, overflow="ellipsis")
-        title.append_text(inert_text(self.record_id, 28, style="bold"))
-        rec = self.original
-        if rec is not None:
-            title.append(f"  ch {self.channel + 1}/{rec.n_channels} ")
-            title.append_text(inert_text(rec.channels[self.channel], 28))
+        """Record id, severity and count, state, read-only badge, then channel, run, kind and rate.
+
+        Laid out by priority for the width at hand: what does not fit is left
+        out from the least important end, never the id, severity or state.
+        """
+        parts: list[tuple[int, Text]] = [(0, inert_text(self.record_id, 28, style="bold"))]
         run = self.shown_run
+        rec = self.original
         if run is not None:
-            title.append("  ")
-            title.append_text(inert_text(info_text.run_label(run.info, self.runs, self.current_run_id), 40))
-            title.append("  ")
-            title.append_text(
-                severity_text(queue_view.worst_severity(run.assessment), len(queue_view.flag_list(run.assessment)))
-            )
-        if rec is not None:
-            title.append("  ")
-            title.append_text(inert_text(rec.kind, 6))
-            title.append(f" {rec.fs:g} Hz")
+            count = len(queue_view.flag_list(run.assessment))
+            parts.append((1, severity_text(queue_view.worst_severity(run.assessment), count)))
         if self.state:
-            title.append("  ")
-            title.append_text(inert_text(self.state, 12, style="dim"))
+            parts.append((2, inert_text(self.state, 12, style="bold")))
         if self.read_only:
-            title = Text.assemble(
-                ("READ-ONLY ", "reverse bold"), ("held by ", "bold"), inert_text(self.holder_text, 120), "  ", title
-            )
-            title.no_wrap, title.overflow = True, "ellipsis"
-        self.query_one("#record-title", Static).update(title)
+            badge = Text("READ-ONLY ", style="reverse bold")
+            name = queue_view.holder_name(self.holder) or "?"
+            badge.append_text(inert_text(name, READ_ONLY_NAME_CHARS, style="reverse"))
+            parts.append((2, badge))
+        if rec is not None:
+            channel = Text(f"ch {self.channel + 1}/{rec.n_channels} ")
+            channel.append_text(inert_text(rec.channels[self.channel], 28))
+            parts.append((4, channel))
+        if run is not None:
+            parts.append((5, inert_text(info_text.run_label(run.info, self.runs, self.current_run_id), 40)))
+        if rec is not None:
+            parts.append((6, Text.assemble(inert_text(rec.kind, 6), f" {rec.fs:g} Hz")))
+        widget = self.query_one("#record-title", Static)
+        width = (widget.content_size.width or self.size.width - 2) if self.is_mounted else 78
+        widget.update(info_text.fit_by_priority(parts, max(width, 20)))
+
+    def update_decision_line(self) -> None:
+        """The record's last decision (who, what, when, note), or that there is none."""
+        last = self.summary.last if self.summary is not None else None
+        self.query_one("#decision-line", Static).update(queue_view.decision_text(last))
 
     def plot_geometry(self) -> tuple[int, int]:
         """Width and total rows available to the plot stack (the flag strip takes one row)."""
@@ -257,8 +351,9 @@ class RecordScreen(DecisionActions, Screen):
         each = max(rows // 3, 2)
         heights = (each, each, rows - 2 * each)
         traces = run.pyramids[self.channel]
-        self.span_s = min(max(self.span_s, MIN_SPAN_S), traces.duration_s)
-        self.start_s = min(max(self.start_s, 0.0), max(traces.duration_s - self.span_s, 0.0))
+        span = min(max(self.span_s, MIN_SPAN_S), traces.duration_s)
+        self.set_reactive(RecordScreen.span_s, span)  # clamped quietly: this is the redraw already
+        self.set_reactive(RecordScreen.start_s, min(max(self.start_s, 0.0), max(traces.duration_s - span, 0.0)))
         regions = queue_view.flagged_regions(run, self.channel)
         plots = render_trace_plots(traces, self.start_s, self.span_s, width, heights, self.app.colour, regions)
         self.last_plots = plots
@@ -342,14 +437,15 @@ class RecordScreen(DecisionActions, Screen):
         run = self.shown_run
         previous = self.loaded.get(self.previous_run_id) if self.previous_run_id else None
         if self.panel == "compare" and previous is None:
-            self.panel = "flags"
+            self.set_reactive(RecordScreen.panel, "flags")
         self.query_one("#panel-tabs", Static).update(info_text.panel_tabs(self.panel, previous is not None))
         if self.panel == "flags":
             body = info_text.flags_panel(run.assessment)
         elif self.panel == "metrics":
             body = info_text.metrics_panel(run.assessment)
         elif self.panel == "run":
-            body = info_text.record_line(self.record_id, self.source_name, self.original)
+            source = self.summary.source_name if self.summary is not None else ""
+            body = info_text.record_line(self.record_id, source, self.original)
             body.append("\n")
             body.append_text(info_text.run_panel(run.info, self.runs, self.current_run_id))
         else:
@@ -364,7 +460,6 @@ class RecordScreen(DecisionActions, Screen):
     def action_pan(self, fraction: float) -> None:
         """Move the window by a fraction of its width."""
         self.start_s += float(fraction) * self.span_s
-        self.redraw()
 
     def action_zoom(self, factor: float) -> None:
         """Narrow (factor < 1) or widen the window around its centre."""
@@ -372,18 +467,15 @@ class RecordScreen(DecisionActions, Screen):
         limit = self.original.duration_s if self.original is not None else self.span_s
         self.span_s = min(max(self.span_s * float(factor), MIN_SPAN_S), limit)
         self.start_s = centre - self.span_s / 2
-        self.redraw()
 
     def action_jump_start(self) -> None:
         """Go to the start of the record."""
         self.start_s = 0.0
-        self.redraw()
 
     def action_jump_end(self) -> None:
         """Go to the end of the record."""
         if self.original is not None:
             self.start_s = self.original.duration_s - self.span_s
-        self.redraw()
 
     def _jump_flag(self, backwards: bool) -> None:
         run = self.shown_run
@@ -399,7 +491,6 @@ class RecordScreen(DecisionActions, Screen):
             return
         self.view = "traces"
         self.start_s = target - self.span_s / 2
-        self.redraw()
 
     def action_next_flag(self) -> None:
         """Centre the window on the next flagged beat or region."""
@@ -413,19 +504,15 @@ class RecordScreen(DecisionActions, Screen):
         """Show the next channel."""
         if self.original is not None:
             self.channel = (self.channel + 1) % self.original.n_channels
-            self.redraw()
 
     def action_toggle_beats(self) -> None:
         """Switch between the three traces and the averaged-beat overlay."""
         self.view = "beats" if self.view == "traces" else "traces"
-        self.redraw()
 
     def action_next_panel(self) -> None:
         """Cycle the lower panel: flags, metrics, run settings, comparison."""
         panels = [p for p in info_text.PANELS if p != "compare" or self.previous_run_id]
         self.panel = panels[(panels.index(self.panel) + 1) % len(panels)] if self.panel in panels else panels[0]
-        if self.shown_run is not None:
-            self.update_panel()
 
     def action_scroll_panel(self, direction: int) -> None:
         """Scroll the lower panel by a page."""
@@ -447,7 +534,6 @@ class RecordScreen(DecisionActions, Screen):
         """Display ``run_id`` (loading it first if needed)."""
         if run_id in self.loaded:
             self.shown_run_id = run_id
-            self.redraw()
         else:
             self.load_other_run(run_id)
 
@@ -465,7 +551,6 @@ class RecordScreen(DecisionActions, Screen):
         def done() -> None:
             self.loaded[run.run_id] = run
             self.shown_run_id = run.run_id
-            self.redraw()
 
         self.app.call_from_thread(done)
 

@@ -94,7 +94,7 @@ class WorklistScreen(Screen):
                 Text(str(record.n_channels)),
                 severity_text(record.worst_severity, record.n_flags),
                 inert_text(queue_view.holder_label(record), 9),
-                inert_text(queue_view.last_decision_word(record), 8),
+                inert_text(queue_view.last_decision_cell(record), 8),
                 key=record.id,
             )
         ids = [r.id for r in rows]
@@ -165,9 +165,7 @@ class WorklistScreen(Screen):
 
     def open_record(self, record_id: str) -> None:
         """Open one record (claiming it, or read-only if someone else holds it)."""
-        from tracevet.app.record_screen import RecordScreen
-
-        self.app.push_screen(RecordScreen(record_id))
+        self.app.open_record(record_id)
 
     def action_quit_app(self) -> None:
         """Leave the app."""

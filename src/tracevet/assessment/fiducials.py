@@ -48,8 +48,8 @@ class Fiducials:
     t: int | None
 
 
-def moving_average(values: np.ndarray, width: int) -> np.ndarray:
-    """Centred moving average of odd ``width`` with edge values repeated (common practice)."""
+def moving_average(values: np.ndarray, width: float) -> np.ndarray:
+    """Centred moving average over ``width`` samples (floored, made odd), edges repeated (common practice)."""
     width = max(1, int(width) | 1)
     if width == 1 or values.size < 2:
         return values.astype(np.float64)

@@ -364,6 +364,7 @@ def _amp_limits(limits: Limits, flag_id: str) -> tuple[float | None, float | Non
 
 def _amp_value(limits: Limits, value: float, allow: float, r_amp: float | None) -> tuple[float | None, float]:
     if limits.absolute:
+        assert limits.mv_per_unit is not None  # absolute limits always carry their unit factor
         return value * limits.mv_per_unit, allow * limits.mv_per_unit
     if r_amp:
         return value / r_amp, allow / r_amp

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from typing import Mapping
+from typing import Any, Mapping
 
 from tracevet.errors import InputError
 from tracevet.recording.model import UNIT_TO_MV
@@ -156,6 +156,7 @@ class Limits:
         """
         spec = self.specs[flag_id]
         if self.absolute:
+            assert self.mv_per_unit is not None  # absolute limits always carry their unit factor
             factor = 1.0 / self.mv_per_unit
             return (
                 None if spec.warn is None else spec.warn * factor,
@@ -186,7 +187,7 @@ def default_limits(kind: str, units: str | None) -> Limits:
     return Limits(
         specs={spec.flag_id: spec for spec in _DEFAULTS},
         absolute=absolute,
-        mv_per_unit=UNIT_TO_MV[units] if absolute else None,
+        mv_per_unit=UNIT_TO_MV.get(units or "") if absolute else None,
         units=units,
     )
 
@@ -244,7 +245,7 @@ def limits_from_mapping(mapping: Mapping | None, source: str = "flag_limits") ->
             continue
         if not isinstance(value, Mapping):
             raise InputError(source, f"flag_limits.{flag_id} must be a mapping (warn, fail...) or 'off'")
-        changes = {}
+        changes: dict[str, Any] = {}
         for name, raw in value.items():
             name = str(name)
             if name not in _KEYS:

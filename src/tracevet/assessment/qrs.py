@@ -505,15 +505,15 @@ def match_beats(reference, detected, fs: float, window_s: float = 0.15, start_s:
         order = np.argsort(dist, kind="stable")
         ref_used = np.zeros(ref.size, dtype=bool)
         det_used = np.zeros(det.size, dtype=bool)
-        mr, md = [], []
+        pairs_r, pairs_d = [], []
         for k in order:
             r, d = ri[k], di[k]
             if not ref_used[r] and not det_used[d]:
                 ref_used[r] = det_used[d] = True
-                mr.append(r)
-                md.append(d)
-        mr = np.asarray(mr, dtype=np.int64)
-        md = np.asarray(md, dtype=np.int64)
+                pairs_r.append(r)
+                pairs_d.append(d)
+        mr = np.asarray(pairs_r, dtype=np.int64)
+        md = np.asarray(pairs_d, dtype=np.int64)
     else:
         det_used = np.zeros(det.size, dtype=bool)
         mr = md = np.zeros(0, dtype=np.int64)

@@ -12,6 +12,7 @@ from __future__ import annotations
 import io
 import json
 import math
+from typing import Any
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -115,7 +116,7 @@ class Assessment:
         folder = Path(folder)
         if not folder.is_dir():
             raise InputError(str(folder), "assessment folder does not exist")
-        arrays = {"channels": np.array([c.channel for c in self.channels], dtype=str)}
+        arrays: dict[str, Any] = {"channels": np.array([c.channel for c in self.channels], dtype=str)}
         for i, ch in enumerate(self.channels):
             prefix = f"ch{i}_"
             arrays[prefix + "r_peaks"] = np.asarray(ch.r_peaks, dtype=np.int64)

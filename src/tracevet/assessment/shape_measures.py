@@ -320,7 +320,8 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
     controls = [slice(0, control_len), slice(x_t.size - control_len, x_t.size)]
     if flanks and n_beats > 1:
         control_sq = float(np.mean(np.concatenate([detrended(r_mean[sl][None, :])[0] for sl in controls]) ** 2))
-        best = None
+        best: tuple[float, float] = (0.0, 0.0)
+        found = False
         for sl in flanks:
             part = detrended(r_mean[sl][None, :])[0]
             floor_sq = float(np.mean(detrended(removed[:, sl]).var(axis=0, ddof=1))) / n_beats
@@ -328,8 +329,8 @@ def measure_templates(windows: BeatWindows) -> TemplateMeasures:
             excess = float(np.sqrt(max(0.0, float(np.mean(part**2)) - reference)))
             # s.d. of the mean of squares of M noise values is about sqrt(2/M) floor^2.
             allow = float(np.sqrt(k * np.sqrt(2.0 / part.size) * reference))
-            if best is None or excess - allow > best[0] - best[1]:
-                best = (excess, allow)
+            if not found or excess - allow > best[0] - best[1]:
+                best, found = (excess, allow), True
         metrics["ringing_rms"], allowance["ringing_rms"] = best
     else:
         metrics["ringing_rms"] = None

@@ -2,8 +2,9 @@
 
 Contract for scripts (keep stable): with ``--json`` exactly one JSON object on
 stdout, ``{"metrics": {...}, "flags": [{"id", "severity", "message", "value",
-"limit", "source", "where", "where_more", "beats_affected", "beats_measured"}, ...]}``; exit 0 when no flag is ``fail``, 1 when at least
-one is, 2 with one line on stderr for bad input or usage.
+"limit", "source", "where", "where_more", "beats_affected", "beats_measured"}, ...]}``;
+exit 0 when no flag is ``fail``, 1 when at least one is, 2 with one line on
+stderr for bad input or usage.
 """
 
 from __future__ import annotations
@@ -17,16 +18,13 @@ from pathlib import Path
 import yaml
 
 from tracevet.assessment.limits import FLAG_IDS, limits_from_mapping
+from tracevet.caution import CAUTION
 from tracevet.errors import InputError
 from tracevet.recording import KINDS, SUPPORTED_READ, Recording, read_recording
 from tracevet.recording.atomic import write_text_atomic
 from tracevet.safe_yaml import load_yaml
 from tracevet.text import inert
 
-CAUTION = (
-    "tracevet is not a medical device and does not diagnose; "
-    "its flags support, never replace, review by qualified staff."
-)
 
 # Metrics shown in the readable report, with labels and the unit kind.
 REPORT_ROWS = (

@@ -14,19 +14,16 @@ import sys
 from typing import Sequence
 
 from tracevet import __version__
+from tracevet.caution import CAUTION
 from tracevet.errors import TracevetError
 from tracevet.text import inert
 
-CAUTION = (
-    "tracevet is not a medical device and does not diagnose. Its flags support, "
-    "and never replace, review by qualified staff; follow local regulations and "
-    "institutional protocols."
-)
 
 # One module per command group under tracevet.cli; each has register(subparsers).
 COMMAND_MODULES = (
     "denoise_cmd",
     "assess_cmd",
+    "suggest_cmd",
     "queue_cmd",
     "review_cmd",
     "demo_cmd",

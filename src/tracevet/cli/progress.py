@@ -33,8 +33,16 @@ class ProgressBar:
         self._last_tenth = -1
         self._last_draw = 0.0
 
-    def line(self, done: float, total: int) -> str:
-        """The bar as text for ``done`` (may be fractional) of ``total``."""
+    def rate_text(self, records: int, retries: int = 0) -> str:
+        """``12.5 records/min`` for ``records`` finished since the bar began, and the retries so far."""
+        elapsed = time.monotonic() - self.started
+        text = f"{60.0 * records / elapsed:.1f} records/min" if records and elapsed > 0 else ""
+        if retries:
+            text += f"{'  ' if text else ''}{retries} retr{'y' if retries == 1 else 'ies'}"
+        return text
+
+    def line(self, done: float, total: int, note: str = "") -> str:
+        """The bar as text for ``done`` (may be fractional) of ``total``, with an optional note."""
         fraction = 1.0 if total == 0 else min(1.0, done / total)
         filled = int(round(fraction * self.width))
         elapsed = time.monotonic() - self.started
@@ -45,22 +53,23 @@ class ProgressBar:
         else:
             tail = ""
         bar = "#" * filled + "-" * (self.width - filled)
-        return f"{self.label} [{bar}] {int(done)}/{total} {fraction * 100:3.0f}%  {tail}".rstrip()
+        note = f"  {note}" if note else ""
+        return f"{self.label} [{bar}] {int(done)}/{total} {fraction * 100:3.0f}%{note}  {tail}".rstrip()
 
-    def update(self, done: float, total: int) -> None:
+    def update(self, done: float, total: int, note: str = "") -> None:
         """Show progress ``done`` of ``total`` (at most ten redraws a second on a terminal)."""
         if self.tty:
             now = time.monotonic()
             if done < total and now - self._last_draw < 0.1:
                 return
             self._last_draw = now
-            self.stream.write("\r" + self.line(done, total) + ("\n" if done >= total else ""))
+            self.stream.write("\r\x1b[K" + self.line(done, total, note) + ("\n" if done >= total else ""))
             self.stream.flush()
             return
         tenth = 10 if total == 0 else int(10 * done / total)
         if tenth != self._last_tenth:
             self._last_tenth = tenth
-            self.stream.write(self.line(done, total) + "\n")
+            self.stream.write(self.line(done, total, note) + "\n")
             self.stream.flush()
 
     def message(self, text: str) -> None:

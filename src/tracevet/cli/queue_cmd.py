@@ -11,17 +11,8 @@ import json
 import sys
 from collections import Counter
 
+from tracevet.cli.defaults import QUEUE_HELP, queue_path
 from tracevet.text import inert
-
-_STATE_WORDS = {
-    "to-clean": "waiting to be cleaned",
-    "to-review": "ready for review",
-    "in-review": "being reviewed",
-    "accepted": "accepted",
-    "rejected": "rejected",
-    "sent-back": "sent back for a re-run",
-}
-
 
 def register(subparsers) -> None:
     """Add the queue commands to the ``tracevet`` parser."""
@@ -73,7 +64,7 @@ def register(subparsers) -> None:
         description="Clean and assess every record waiting to be cleaned or sent back for a re-run; resumable.",
     )
     p.add_argument("queue", metavar="QUEUE")
-    p.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
+    p.add_argument("--workers", type=int, default=2, help="worker processes on this machine (default 2)")
     p.add_argument(
         "--set",
         dest="overrides",
@@ -81,6 +72,23 @@ def register(subparsers) -> None:
         default=[],
         metavar="KEY=VALUE",
         help="change a cleaning setting for this batch",
+    )
+    p.add_argument(
+        "--cluster",
+        metavar="ADDRESS",
+        help="send the work to this Dask scheduler (tcp://HOST:PORT or tls://HOST:PORT; default $TRACEVET_CLUSTER, "
+        "else the queue's 'cluster:' setting; needs tracevet[cluster]; see docs/cluster.md)",
+    )
+    p.add_argument(
+        "--local",
+        action="store_true",
+        help="use this machine's processes even if $TRACEVET_CLUSTER or the queue names a cluster",
+    )
+    p.add_argument(
+        "--shared-filesystem",
+        action="store_true",
+        help="with a cluster: workers read the originals at this queue's path (checked by SHA-256) "
+        "instead of receiving their bytes",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_clean)
@@ -90,7 +98,7 @@ def register(subparsers) -> None:
         help="counts per state, flags and who holds what",
         description="Show the queue's records by state, flags and claims.",
     )
-    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("queue", metavar="QUEUE", nargs="?", help=QUEUE_HELP)
     p.add_argument("--list", action="store_true", help="one line per record")
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=cmd_status)
@@ -118,6 +126,11 @@ def register(subparsers) -> None:
         help="with rerun: settings for the re-run (over the queue's)",
     )
     p.add_argument("--profile", metavar="FILE", help="with rerun: a profile for the re-run")
+    p.add_argument(
+        "--override",
+        action="store_true",
+        help="decide over another reviewer's decision that still stands (the log entry names the one overridden)",
+    )
     p.add_argument("--json", action="store_true", help="print the log entry as JSON")
     p.set_defaults(func=cmd_decide)
 
@@ -139,7 +152,7 @@ def register(subparsers) -> None:
             "or remove a torn last line (--repair)."
         ),
     )
-    p.add_argument("queue", metavar="QUEUE")
+    p.add_argument("queue", metavar="QUEUE", nargs="?", help=QUEUE_HELP)
     p.add_argument("--record", help="only entries about this record")
     p.add_argument("--json", action="store_true", help="entries (or problems) as JSON")
     group = p.add_mutually_exclusive_group()
@@ -163,15 +176,15 @@ def register(subparsers) -> None:
 
 
 def _reviewer(args) -> str:
-    from tracevet.workqueue import check_reviewer, default_reviewer
+    from tracevet.workqueue import resolve_reviewer
 
-    return check_reviewer(args.reviewer if getattr(args, "reviewer", None) is not None else default_reviewer())
+    return resolve_reviewer(getattr(args, "reviewer", None))
 
 
 def _open(args):
     from tracevet.workqueue import Queue
 
-    return Queue.open(args.queue)
+    return Queue.open(queue_path(args.queue))
 
 
 # ---------------------------------------------------------------- init / add
@@ -183,10 +196,10 @@ def cmd_init(args) -> int:
     if args.profile or args.overrides:
         from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, load_profile
 
-        settings = load_profile(args.profile) if args.profile else DEFAULT_SETTINGS
+        chosen = load_profile(args.profile) if args.profile else DEFAULT_SETTINGS
         if args.overrides:
-            settings = apply_overrides(settings, args.overrides)
-        cleaning = settings.to_dict()
+            chosen = apply_overrides(chosen, args.overrides)
+        cleaning = chosen.to_dict()
     settings = new_settings(
         cleaning=cleaning, kind=args.kind, units=args.units, claim_idle_minutes=args.claim_idle_minutes
     )
@@ -243,31 +256,49 @@ def _flag_text(item) -> str:
 # --------------------------------------------------------------------- clean
 def cmd_clean(args) -> int:
     """``tracevet clean QUEUE``: clean every waiting record with a progress bar."""
+    from dataclasses import replace
+
     from tracevet.cli.progress import ProgressBar
     from tracevet.workqueue.batch import clean_waiting
+    from tracevet.workqueue.cluster import choose_cluster
 
+    if args.local and args.cluster:
+        from tracevet.cli.main import UsageError
+
+        raise UsageError("tracevet clean: give either --cluster ADDRESS or --local, not both")
     queue = _open(args)
+    cluster = choose_cluster(args.cluster, queue.settings.cluster, queue.settings.source, local=args.local)
+    if cluster is not None and args.shared_filesystem:
+        cluster = replace(cluster, shared_filesystem=True)
     bar = None if args.quiet else ProgressBar("cleaning")
     failures = []
+    retries = finished = 0
 
     def progress(done, total, outcome):
-        if outcome is not None and outcome.error:
-            failures.append(outcome)
-            if bar:
-                bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
+        nonlocal retries, finished
+        if outcome is not None:
+            finished += 1
+            retries += outcome.retries
+            if outcome.error:
+                failures.append(outcome)
+                if bar:
+                    bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
         if bar and total:
-            bar.update(done, total)
+            bar.update(done, total, note=bar.rate_text(finished, retries))
 
-    outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress)
+    outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress, cluster=cluster)
     made = [o for o in outcomes if o.run_id]
     flagged = Counter(o.worst_severity or "none" for o in made)
     if not outcomes:
         print("nothing waiting to be cleaned")
         return 0
+    where = f" on {inert(cluster.address, 80)}" if cluster is not None else ""
     print(
-        f"cleaned {len(made)} record(s): {flagged.get('fail', 0)} with fail flags, {flagged.get('warn', 0)} with "
-        f"warnings, {flagged.get('none', 0)} without flags"
+        f"cleaned {len(made)} record(s){where}: {flagged.get('fail', 0)} with fail flags, "
+        f"{flagged.get('warn', 0)} with warnings, {flagged.get('none', 0)} without flags"
     )
+    if retries:
+        print(f"{retries} task(s) retried (a worker died or a task failed and was run again)")
     if failures:
         for outcome in failures:
             if bar is None:
@@ -325,7 +356,7 @@ def cmd_status(args) -> int:
         return 0
     print(f"queue {inert(queue.root)}: {len(records)} record(s)")
     for state in STATES:
-        print(f"  {state:<10} {states.get(state, 0):>6}  {_STATE_WORDS[state]}")
+        print(f"  {state:<10} {states.get(state, 0):>6}  {state.meaning}")
     print(
         f"flags on the newest runs: {flags.get('fail', 0)} fail, {flags.get('warn', 0)} warn, {flags.get('none', 0)} "
         "none"
@@ -345,8 +376,9 @@ def cmd_status(args) -> int:
 
 # ---------------------------------------------------------- decide / claims
 def cmd_decide(args) -> int:
-    """``tracevet decide QUEUE RECORD accept|reject|rerun``."""
+    """``tracevet decide QUEUE RECORD accept|reject|rerun [--override]``."""
     from tracevet.errors import InputError
+    from tracevet.workqueue.states import DECISION_PAST
 
     queue = _open(args)
     requested = None
@@ -359,16 +391,22 @@ def cmd_decide(args) -> int:
     elif args.overrides or args.profile:
         raise InputError("--set/--profile", "settings go with a 'rerun' decision only")
     entry = queue.decide(
-        args.record, args.decision, args.note, _reviewer(args), run_id=args.run, requested_settings=requested
+        args.record, args.decision, args.note, _reviewer(args), run_id=args.run, requested_settings=requested,
+        override=args.override,
     )
     if args.json:
         print(json.dumps(entry.data))
         return 0
-    word = {"accept": "accepted", "reject": "rejected", "rerun": "sent back for a re-run"}[entry.decision]
-    print(
-        f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} (log entry {entry.seq}, hash "
-        f"{entry.hash[:16]})"
+    word = DECISION_PAST[entry.decision]
+    line = (
+        f"{entry.record} {entry.run}: {word} by {inert(entry.reviewer, 60)} "
+        f"(log entry {entry.seq}, hash {entry.hash[:16]})"
     )
+    overridden = entry.get("overrides")
+    if isinstance(overridden, dict):
+        past = DECISION_PAST.get(str(overridden.get("decision")), inert(overridden.get("decision"), 20))
+        line += f"; overrides entry {overridden.get('seq')} ({past} by {inert(overridden.get('reviewer'), 60)})"
+    print(line)
     return 0
 
 
@@ -403,6 +441,12 @@ def _entry_line(entry) -> str:
         what = f"{'takeover':<7} {entry.record}: {inert(entry.get('reason'), 80)}"
     else:
         what = f"{entry.event:<7} {inert(entry.note, 100)}"
+    overridden = entry.get("overrides") if entry.event == "decision" else None
+    if isinstance(overridden, dict):
+        what += (
+            f" (overrides entry {overridden.get('seq')}, {inert(overridden.get('decision'), 10)}"
+            f" by {inert(overridden.get('reviewer'), 40)})"
+        )
     note = f'  "{inert(entry.note, 300)}"' if entry.event == "decision" and entry.note else ""
     digest = entry.get("settings_digest")
     extra = (
@@ -470,7 +514,7 @@ def cmd_log(args) -> int:
     if torn is not None:
         print(
             f"tracevet: the log ends with a torn line (line {torn.line}, {torn.size} bytes) from an interrupted "
-            f"write; 'tracevet log {inert(args.queue, 100)} --repair' removes it",
+            f"write; 'tracevet log {inert(queue.root, 100)} --repair' removes it",
             file=sys.stderr,
         )
     return 0

@@ -3,16 +3,15 @@
 from __future__ import annotations
 
 import argparse
-import getpass
-import os
 import sys
 from pathlib import Path
 
+from tracevet.cli.defaults import QUEUE_ENV, QUEUE_HELP, default_queue_path, queue_path
 from tracevet.errors import InputError
 from tracevet.text import inert
+from tracevet.workqueue.queue import REVIEWER_ENV, resolve_reviewer
 
-QUEUE_ENV = "TRACEVET_QUEUE"
-REVIEWER_ENV = "TRACEVET_REVIEWER"
+__all__ = ["QUEUE_ENV", "default_queue_path", "register", "run"]
 
 
 def register(subparsers) -> None:
@@ -29,40 +28,13 @@ def register(subparsers) -> None:
     parser.add_argument(
         "queue",
         nargs="?",
-        help=f"queue folder (default: ${QUEUE_ENV}, else the repository's queue/ folder)",
+        help=QUEUE_HELP,
     )
     parser.add_argument(
         "--reviewer",
         help=f"name written into claims and decisions (default: ${REVIEWER_ENV}, else your login name)",
     )
     parser.set_defaults(func=run)
-
-
-def default_queue_path() -> Path | None:
-    """The queue opened without an argument: ``$TRACEVET_QUEUE``, else the checkout's ``queue/``.
-
-    ``queue/`` is found relative to the installed package
-    (``src/tracevet/../../queue``), which exists when running from a
-    checkout; None when neither is available.
-    """
-    configured = os.environ.get(QUEUE_ENV)
-    if configured:
-        return Path(configured).expanduser()
-    checkout_queue = Path(__file__).resolve().parents[3] / "queue"
-    if checkout_queue.is_dir():
-        return checkout_queue
-    return None
-
-
-def default_reviewer() -> str:
-    """``$TRACEVET_REVIEWER``, else the login name."""
-    name = os.environ.get(REVIEWER_ENV)
-    if name:
-        return name
-    try:
-        return getpass.getuser()
-    except Exception:  # no login name available (containers)
-        return "reviewer"
 
 
 def fill_default_queue_with_demo(path: Path) -> bool:
@@ -107,15 +79,8 @@ def _open_queue(path: Path):
 def run(args: argparse.Namespace) -> int:
     """Open the queue and run the app until the reviewer quits."""
     is_default = args.queue is None
-    path = Path(args.queue).expanduser() if args.queue else default_queue_path()
-    if path is None:
-        raise InputError(
-            "queue",
-            f"no queue given and no default found: pass a queue folder or set ${QUEUE_ENV}",
-        )
-    reviewer = (args.reviewer or default_reviewer()).strip()
-    if not reviewer or any(ord(c) < 32 or ord(c) == 127 for c in reviewer) or len(reviewer) > 64:
-        raise InputError("--reviewer", "the reviewer name must be 1-64 printable characters")
+    path = queue_path(args.queue)
+    reviewer = resolve_reviewer(args.reviewer)
     if is_default and not _holds_records(path):
         if not fill_default_queue_with_demo(path):
             return 2

@@ -50,7 +50,7 @@ def default_mode(path: Path) -> int:
         return 0o666 & ~_current_umask()
 
 
-def write_atomic(path: str | os.PathLike, writer: Callable[[BinaryIO], None], mode: int | None = None) -> None:
+def write_atomic(path: str | os.PathLike, writer: Callable[[BinaryIO], object], mode: int | None = None) -> None:
     """Write a file atomically.
 
     ``writer`` receives a binary file object open on a temporary file in the

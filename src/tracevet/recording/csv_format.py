@@ -108,9 +108,10 @@ def read_csv(path: Path, fs: float | None = None) -> Recording:
         if not names:
             raise InputError(source, "only a time column, no signal channels")
     else:
-        rate = fs if fs is not None else rate_from_meta
-        if rate is None:
+        given = fs if fs is not None else rate_from_meta
+        if given is None:
             raise InputError(source, "no time column and no sampling rate: pass --fs HZ")
+        rate = given
     start = None
     if meta.get("start_time"):
         try:

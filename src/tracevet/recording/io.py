@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 from dataclasses import replace
 from pathlib import Path
+from typing import Any
 
 from tracevet.errors import InputError
 from tracevet.recording.atomic import write_atomic
@@ -62,7 +63,7 @@ def read_recording(
     if path.is_dir():
         raise InputError(str(path), "is a folder, not a recording file")
     recording = _READERS[suffix](path, fs)
-    changes = {}
+    changes: dict[str, Any] = {}
     if kind is not None:
         if kind not in KINDS:
             raise InputError("--kind", f"must be one of {', '.join(KINDS)}, got {kind!r}")

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import io
 import zipfile
+from typing import Any
 from datetime import datetime
 from pathlib import Path
 
@@ -132,7 +133,7 @@ def write_npy(recording: Recording, handle) -> None:
 
 def write_npz(recording: Recording, handle) -> None:
     """Write samples and metadata as ``.npz`` to an open, seekable binary file."""
-    arrays = {
+    arrays: dict[str, Any] = {
         "signal": recording.samples[:, 0] if recording.n_channels == 1 else recording.samples,
         "fs": np.float64(recording.fs),
         "channels": np.array(recording.channels, dtype=str),

@@ -30,13 +30,16 @@ Reading (never reads data files unless named ``load_*``)
 Claims
     ``queue.claim(id, reviewer) -> Claim`` (raises :class:`ClaimedByOther`,
     whose ``holder`` is the other reviewer's :class:`Claim`);
+    ``queue.holder(id) -> Claim | None``;
     ``queue.touch_claim(id, reviewer) -> Claim``;
     ``queue.release(id, reviewer) -> bool``.
 
 Changes
     ``queue.decide(id, decision, note, reviewer, run_id=None,
-    requested_settings=None) -> LogEntry`` (``accept``/``reject``/``rerun``;
-    fsynced before it returns; ends the reviewer's claim);
+    requested_settings=None, override=False) -> LogEntry``
+    (``accept``/``reject``/``rerun``; fsynced before it returns; ends the
+    reviewer's claim; :class:`DecisionOverride` when another reviewer's
+    decision stands and ``override`` is False);
     ``queue.add_run(id, settings=None, progress=None, reviewer=None) -> run_id``
     (clean and assess in this process; ``progress(fraction)`` raising cancels
     and leaves nothing behind);
@@ -49,19 +52,32 @@ Batch work
     :func:`tracevet.workqueue.batch.clean_waiting` and
     :func:`tracevet.workqueue.export.export_accepted`.
 
-States (``RecordSummary.state``): ``to-clean`` (waiting to be cleaned),
+States (``RecordSummary.state``, a :class:`RecordState` from
+:mod:`tracevet.workqueue.states`): ``to-clean`` (waiting to be cleaned),
 ``to-review`` (ready for review), ``in-review`` (a reviewer holds it),
 ``accepted``, ``rejected``, ``sent-back`` (sent back for a re-run).
 
 The reviewer name, when none is given: :func:`default_reviewer`
-(``$TRACEVET_REVIEWER``, else the login name).
+(``$TRACEVET_REVIEWER``, else the login name, else ``uid-N``);
+:func:`resolve_reviewer` applies it and checks the name (CLI and app alike).
 """
 
 from tracevet.workqueue.claims import Claim, ClaimedByOther
-from tracevet.workqueue.index import ACCEPTED, IN_REVIEW, REJECTED, SENT_BACK, STATES, TO_CLEAN, TO_REVIEW
+from tracevet.workqueue.index import ACCEPTED, IN_REVIEW, REJECTED, SENT_BACK, TO_CLEAN, TO_REVIEW
 from tracevet.workqueue.log import DECISIONS, LogEntry
-from tracevet.workqueue.queue import Queue, RecordSummary, check_note, check_reviewer, default_reviewer
+from tracevet.workqueue.queue import (
+    REVIEWER_ENV,
+    DecisionOverride,
+    LastDecision,
+    Queue,
+    RecordSummary,
+    check_note,
+    check_reviewer,
+    default_reviewer,
+    resolve_reviewer,
+)
 from tracevet.workqueue.runs import RunInfo
+from tracevet.workqueue.states import DECIDED_STATES, REVIEW_STATES, STATES, RecordState
 from tracevet.workqueue.settings import QueueSettings, new_settings
 from tracevet.workqueue.verify import Problem
 
@@ -69,14 +85,20 @@ __all__ = [
     "ACCEPTED",
     "Claim",
     "ClaimedByOther",
+    "DECIDED_STATES",
     "DECISIONS",
+    "DecisionOverride",
     "IN_REVIEW",
+    "LastDecision",
     "LogEntry",
     "Problem",
     "Queue",
     "QueueSettings",
     "REJECTED",
+    "REVIEWER_ENV",
+    "RecordState",
     "RecordSummary",
+    "REVIEW_STATES",
     "RunInfo",
     "SENT_BACK",
     "STATES",
@@ -85,5 +107,6 @@ __all__ = [
     "check_note",
     "check_reviewer",
     "default_reviewer",
+    "resolve_reviewer",
     "new_settings",
 ]

@@ -1,32 +1,39 @@
-"""``tracevet clean``: clean and assess every record that waits, on several processes.
+"""``tracevet clean``: clean and assess every record that waits, on several processes or a cluster.
 
 Records waiting are those ``to-clean`` (never cleaned) and ``sent-back``
 (a reviewer asked for a re-run; the settings they asked for, if any, are
-used, otherwise the queue's). Each record is cleaned in a worker process
-(``concurrent.futures.ProcessPoolExecutor``), its run written under
-``.work/`` and renamed into place only when whole, so an interrupted batch
-leaves either a complete run or nothing; running ``tracevet clean`` again
-carries on with the records still waiting. Scratch folders of processes
-that died are swept first. Only one batch runs on a queue at a time.
+used, otherwise the queue's). Each record is cleaned by
+:func:`tracevet.workqueue.tasks.clean_record` on a backend
+(:mod:`tracevet.workqueue.backend`: this process, the local process pool by
+default, or a Dask cluster), which sends back the cleaned samples and the
+assessment. Only this process writes into the queue (one writer): it checks
+each result (batch token, worker software versions, checksum of the original
+the worker read, settings digest, shape) and stores it as a run, written
+under ``.work/`` and renamed into place only when whole, so an interrupted
+batch leaves either a complete run or nothing; running ``tracevet clean``
+again carries on with the records still waiting. A run is stored at most
+once per batch token (batch and record), so a retried task never leaves two
+runs. Scratch folders of processes that died are swept first. Only one batch
+runs on a queue at a time; the decision log is never written by a batch.
 """
 
 from __future__ import annotations
 
-import multiprocessing
 import os
-import queue as queue_module
 import time
-from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+import uuid
 from dataclasses import dataclass
-from typing import Callable
+from typing import Callable, Iterator
 
-from tracevet.errors import InputError, TracevetError
+from tracevet.errors import InputError
 from tracevet.text import inert
+from tracevet.workqueue.backend import InlineBackend, LocalPoolBackend, run_tasks
 from tracevet.workqueue.ids import run_number
 from tracevet.workqueue.index import SENT_BACK, TO_CLEAN
 from tracevet.workqueue.locking import try_hold
-from tracevet.workqueue.records import sweep_work
+from tracevet.workqueue.records import original_path, read_meta, sweep_work
 from tracevet.workqueue.runs import list_runs
+from tracevet.workqueue.tasks import RecordResult, RecordTask, clean_record, software_versions, version_difference
 
 _FLUSH_SECONDS = 1.0
 
@@ -40,6 +47,8 @@ class CleanOutcome:
     worst_severity: str | None = None
     n_flags: int = 0
     error: str | None = None
+    retries: int = 0
+    worker: str | None = None
 
 
 def waiting(queue) -> list[tuple[str, dict | None]]:
@@ -68,86 +77,83 @@ def waiting(queue) -> list[tuple[str, dict | None]]:
     return todo
 
 
-# Set in each worker process: where to send (record id, fraction) while a record is cleaned.
-_PROGRESS_QUEUE = None
-_CLEANING_SHARE = 0.8  # share of a record's progress given to cleaning (the rest: assessment, writing)
+# Records in flight per worker, beyond the one being cleaned: enough to keep workers busy while
+# the writer stores results, few enough that a large archive never sits in memory.
+IN_FLIGHT_PER_WORKER = 2
 
 
-def _init_worker(progress_queue) -> None:
-    global _PROGRESS_QUEUE
-    _PROGRESS_QUEUE = progress_queue
+def open_backend(workers: int = 2, cluster=None, partial: Callable[[str, float], None] | None = None):
+    """The backend a batch runs on: a Dask cluster when ``cluster`` is given, else local.
 
-
-def _reporter(record_id: str, sink: Callable[[str, float], None] | None) -> Callable[[float], None] | None:
-    """A progress callback for the engine that forwards at most every 0.2 s."""
-    if sink is None:
-        return None
-    last = [0.0]
-
-    def report(fraction: float) -> None:
-        now = time.monotonic()
-        if now - last[0] >= 0.2:
-            last[0] = now
-            sink(record_id, _CLEANING_SHARE * float(fraction))
-
-    return report
-
-
-def _queue_sink(record_id: str, fraction: float) -> None:
-    try:
-        _PROGRESS_QUEUE.put_nowait((record_id, fraction))
-    except Exception:  # progress is a nicety; never fail a record over it
-        pass
-
-
-def clean_one(
-    root: str, record_id: str, settings: dict, sink: Callable[[str, float], None] | None = None
-) -> CleanOutcome:
-    """Clean and assess one record of the queue at ``root`` (runs in a worker process).
-
-    ``sink(record_id, fraction)`` receives progress within the record; in a
-    worker process started by :func:`clean_waiting` it defaults to the
-    batch's progress channel.
+    ``cluster`` is a :class:`tracevet.workqueue.cluster.ClusterSettings` (or
+    None); ``workers`` is the local pool's size (1: this process).
+    Raises InputError (one line) for a malformed address, an unreachable
+    scheduler, or Dask not installed.
     """
-    from tracevet.assessment import assess
-    from tracevet.cleaning import CleaningSettings, clean
-    from tracevet.workqueue.queue import Queue
+    if cluster is not None:
+        from tracevet.workqueue.cluster import DaskBackend
 
-    if sink is None and _PROGRESS_QUEUE is not None:
-        sink = _queue_sink
-    try:
-        queue = Queue.open(root)
-        chosen = CleaningSettings.from_dict(settings, source=f"{record_id}: settings")
-        original = queue.load_original(record_id)
-        cleaned = clean(original, chosen, progress=_reporter(record_id, sink))
-        assessment = assess(original, cleaned, limits=queue.settings.limits())
-        run_id = queue.store_run(record_id, cleaned, assessment, chosen, update_index=False)
-        return CleanOutcome(record_id, run_id, assessment.worst_severity, len(assessment.flags))
-    except TracevetError as exc:
-        return CleanOutcome(record_id, error=exc.one_line())
-    except MemoryError:
-        return CleanOutcome(record_id, error="not enough memory to clean this record")
-    except Exception as exc:  # one bad record must not stop the batch; reported per record
-        return CleanOutcome(record_id, error=f"internal error ({type(exc).__name__}: {inert(exc, 160)})")
+        return DaskBackend(cluster)
+    if workers < 1:
+        raise InputError("--workers", "must be at least 1")
+    if workers == 1:
+        return InlineBackend(partial)
+    return LocalPoolBackend(workers, partial)
 
 
-def _drain(channel, part: Callable[[str, float], None]) -> None:
-    """Pass on every progress message waiting in ``channel``."""
-    while True:
-        try:
-            record_id, fraction = channel.get_nowait()
-        except queue_module.Empty:
-            return
-        except (OSError, ValueError, EOFError):
-            return
-        part(record_id, fraction)
+def _tasks(queue, todo: list[tuple[str, dict]], token: str, versions: dict, send_bytes: bool) -> Iterator[RecordTask]:
+    """Build each record's task when the loop asks for it (bytes read then, not before)."""
+    limits = dict(queue.settings.flag_limits)
+    for record_id, settings in todo:
+        meta = read_meta(queue.paths, record_id)
+        path = original_path(queue.paths, record_id, meta)
+        yield RecordTask(
+            record_id=record_id,
+            token=f"{token}/{record_id}",
+            settings=settings,
+            flag_limits=limits,
+            original_name=path.name,
+            original_sha256=str(meta.get("original_sha256")),
+            read_fs=meta.get("read_fs"),
+            kind=meta.get("kind"),
+            units=meta.get("units"),
+            versions=versions,
+            path=None if send_bytes else str(path),
+            data=path.read_bytes() if send_bytes else None,
+        )
+
+
+def check_result(task: RecordTask, result, versions: dict, expected_digest: str, meta: dict) -> str | None:
+    """Why a worker's result for ``task`` cannot be stored, or None when it can."""
+    if not isinstance(result, RecordResult):
+        return "the worker sent back something that is not a record result"
+    if result.record_id != task.record_id or result.token != task.token:
+        return "the worker sent back the result of another task"
+    if result.error:
+        return result.error
+    difference = version_difference(versions, result.versions or {})
+    if difference is not None:
+        return f"refused: result from a worker with other software ({difference})"
+    if result.input_sha256 != task.original_sha256:
+        return "refused: the worker cleaned bytes that do not match the original's checksum"
+    if result.settings_digest != expected_digest:
+        return "refused: the worker cleaned with other settings than those asked for"
+    cleaned = result.cleaned
+    samples = getattr(cleaned, "samples", None)
+    if samples is None or samples.shape != (meta.get("n_samples"), meta.get("n_channels")):
+        return "refused: the cleaned recording does not have the original's shape"
+    if result.assessment is None or not hasattr(result.assessment, "save"):
+        return "refused: the worker sent back no assessment"
+    return None
 
 
 def clean_waiting(
     queue,
     workers: int = 2,
     overrides: list[str] | None = None,
-    progress: Callable[[int, int, CleanOutcome | None], None] | None = None,
+    progress: Callable[[float, int, CleanOutcome | None], None] | None = None,
+    cluster=None,
+    backend=None,
 ) -> list[CleanOutcome]:
     """Clean every waiting record; return one outcome per record.
 
@@ -155,88 +161,170 @@ def clean_waiting(
     ----------
     queue : Queue
     workers : int
-        Worker processes (1 cleans in this process).
+        Local worker processes (1 cleans in this process); unused with a cluster.
     overrides : list of str, optional
         ``key=value`` changes to the queue's cleaning settings (not applied to
         re-runs that asked for their own settings).
     progress : callable(done, total, outcome), optional
         Called with ``(0, total, None)`` first, with ``(done, total, outcome)``
-        after every record, and in between with a fractional ``done``
-        (records finished plus the parts of those being cleaned) and
-        ``outcome`` None.
+        after every record (``outcome.retries``: extra attempts it took), and
+        in between with a fractional ``done`` (records finished plus the parts
+        of those being cleaned, local pool only) and ``outcome`` None.
+    cluster : ClusterSettings, optional
+        Run on this Dask cluster (see :mod:`tracevet.workqueue.cluster`).
+    backend : optional
+        An already opened backend (closed by the caller); overrides
+        ``workers`` and ``cluster``.
 
     Raises
     ------
     InputError
-        When another batch is running on this queue, or the settings are invalid.
+        When another batch is running on this queue, the settings are
+        invalid, or the cluster cannot be used (nothing written then).
+    BackendLost
+        When the scheduler is lost mid-batch; the runs already stored stay.
     """
     if workers < 1:
         raise InputError("--workers", "must be at least 1")
     lock_fd = try_hold(queue.paths.clean_lock)
     if lock_fd is None:
         raise InputError(str(queue.root), "another 'tracevet clean' is already running on this queue")
-
+    own_backend = None
     try:
         sweep_work(queue.paths)
         base = queue.settings.cleaning_settings(overrides).to_dict()
         queue.settings.limits()  # a bad flag_limits section stops the batch here, once, not per record
         todo = [(record_id, requested or base) for record_id, requested in waiting(queue)]
         total = len(todo)
-        if progress:
-            progress(0, total, None)
         outcomes: list[CleanOutcome] = []
         if total == 0:
+            if progress:
+                progress(0, 0, None)
             return outcomes
         pending_index: list[str] = []
         partial: dict[str, float] = {}  # record id -> fraction done, for records being cleaned
         last_flush = time.monotonic()
-
-        def finished(outcome: CleanOutcome) -> None:
-            nonlocal last_flush
-            outcomes.append(outcome)
-            if outcome.run_id:
-                pending_index.append(outcome.record_id)
-            if pending_index and time.monotonic() - last_flush > _FLUSH_SECONDS:
-                queue.refresh_index(pending_index)
-                pending_index.clear()
-                last_flush = time.monotonic()
-            if progress:
-                progress(len(outcomes) + sum(partial.values()), total, outcome)
 
         def part(record_id: str, fraction: float) -> None:
             partial[record_id] = fraction
             if progress:
                 progress(len(outcomes) + sum(partial.values()), total, None)
 
-        try:
-            if workers == 1 or total == 1:
-                for record_id, settings in todo:
-                    outcome = clean_one(str(queue.root), record_id, settings, sink=part)
-                    partial.pop(record_id, None)
-                    finished(outcome)
-            else:
-                context = multiprocessing.get_context()
-                channel = context.Queue()
-                with ProcessPoolExecutor(
-                    max_workers=min(workers, total), mp_context=context, initializer=_init_worker, initargs=(channel,)
-                ) as pool:
-                    futures: dict[Future, str] = {pool.submit(clean_one, str(queue.root), r, s): r for r, s in todo}
-                    waiting_on = set(futures)
-                    try:
-                        while waiting_on:
-                            done, waiting_on = wait(waiting_on, timeout=0.25, return_when=FIRST_COMPLETED)
-                            _drain(channel, part)
-                            for future in done:
-                                partial.pop(futures[future], None)
-                                finished(future.result())
-                    except BaseException:
-                        for future in waiting_on:
-                            future.cancel()
-                        raise
-                channel.close()
-        finally:
-            if pending_index:
+        if backend is None:
+            own_backend = backend = open_backend(min(workers, total), cluster, part)
+        if progress:
+            progress(0, total, None)
+        versions = software_versions()
+        token = uuid.uuid4().hex
+        remote = bool(getattr(backend, "remote", False))
+        send_bytes = remote and not getattr(backend, "shared_filesystem", False)
+        slots = int(getattr(backend, "slots", None) or min(workers, total))
+        digests = _digests(todo)
+
+        def flush(force: bool = False) -> None:
+            nonlocal last_flush
+            if pending_index and (force or time.monotonic() - last_flush > _FLUSH_SECONDS):
                 queue.refresh_index(pending_index)
+                pending_index.clear()
+                last_flush = time.monotonic()
+
+        def on_result(task: RecordTask, result, error: str | None, retries: int) -> None:
+            partial.pop(task.record_id, None)
+            worker = _worker_text(result)
+            outcome = _store(queue, task, result, error, versions, digests[task.record_id], worker, retries)
+            outcomes.append(outcome)
+            if outcome.run_id:
+                pending_index.append(outcome.record_id)
+            flush()
+            if progress:
+                progress(len(outcomes) + sum(partial.values()), total, outcome)
+
+        try:
+            run_tasks(
+                backend,
+                clean_record,
+                _tasks(queue, todo, token, versions, send_bytes),
+                on_result,
+                max_in_flight=slots * IN_FLIGHT_PER_WORKER if slots > 1 else 1,
+                on_wait=flush,
+            )
+        finally:
+            flush(force=True)
         return outcomes
     finally:
-        os.close(lock_fd)
+        try:
+            if own_backend is not None:
+                own_backend.close()
+        finally:
+            os.close(lock_fd)
+
+
+def _digests(todo: list[tuple[str, dict]]) -> dict[str, str]:
+    from tracevet.cleaning import CleaningSettings
+
+    return {r: CleaningSettings.from_dict(s, source=f"{r}: settings").digest() for r, s in todo}
+
+
+def _worker_text(result) -> str | None:
+    worker = getattr(result, "worker", None) or {}
+    return worker.get("address") or (f"{worker.get('host')}:{worker.get('pid')}" if worker else None)
+
+
+def _store(
+    queue, task: RecordTask, result, error: str | None, versions: dict, digest: str, worker, retries: int
+) -> CleanOutcome:
+    """Check a worker's result and store it as a run (this process is the queue's only writer)."""
+    from tracevet.cleaning import CleaningSettings
+    from tracevet.errors import TracevetError
+
+    if error is not None:
+        return CleanOutcome(task.record_id, error=error, retries=retries, worker=worker)
+    try:
+        meta = read_meta(queue.paths, task.record_id)
+        problem = check_result(task, result, versions, digest, meta)
+        if problem is not None:
+            return CleanOutcome(task.record_id, error=problem, retries=retries, worker=worker)
+        # The run records the settings the worker applied (mains auto resolved on the record).
+        applied = getattr(result, "applied_settings", None) or task.settings
+        settings = CleaningSettings.from_dict(applied, source=f"{task.record_id}: settings")
+        extra = {"worker": result.worker, "software": result.versions, "worker_seconds": round(result.seconds, 3)}
+        if getattr(result, "mains_detection", None):
+            extra["mains_detection"] = result.mains_detection
+        run_id = queue.store_run(
+            task.record_id,
+            result.cleaned,
+            result.assessment,
+            settings,
+            update_index=False,
+            batch_token=task.token,
+            extra=extra,
+        )
+        assessment = result.assessment
+        severity, n_flags = assessment.worst_severity, len(assessment.flags)
+        return CleanOutcome(task.record_id, run_id, severity, n_flags, retries=retries, worker=worker)
+    except TracevetError as exc:
+        return CleanOutcome(task.record_id, error=exc.one_line(), retries=retries, worker=worker)
+    except OSError as exc:
+        problem = f"could not store the run ({inert(exc, 160)})"
+        return CleanOutcome(task.record_id, error=problem, retries=retries, worker=worker)
+
+
+def clean_one(root: str, record_id: str, settings: dict) -> CleanOutcome:
+    """Clean, assess and store one record of the queue at ``root`` in this process.
+
+    For scripts that fill a queue from several processes of their own (the
+    queue benchmark); ``tracevet clean`` uses :func:`clean_waiting`.
+    """
+    from tracevet.workqueue.queue import Queue
+
+    queue = Queue.open(root)
+    versions = software_versions()
+    [task] = _tasks(queue, [(record_id, settings)], uuid.uuid4().hex, versions, send_bytes=False)
+    try:
+        result, error = clean_record(task), None
+    except Exception as exc:  # reported like a failed task of a batch
+        from tracevet.workqueue.backend import describe_failure
+
+        result, error = None, describe_failure(exc)
+    digest = _digests([(record_id, settings)])[record_id]
+    return _store(queue, task, result, error, versions, digest, _worker_text(result), 0)

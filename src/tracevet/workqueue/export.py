@@ -32,6 +32,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from tracevet import __version__
+from tracevet.caution import CAUTION
 from tracevet.errors import InputError
 from tracevet.recording.atomic import fsync_dir, write_text_atomic
 from tracevet.text import inert
@@ -218,9 +219,5 @@ def _report(manifest: dict) -> str:
             f"  cleaned      {row['file']}  sha256 {row['sha256']}",
             f"  log entry    hash {row['log_entry_hash']}",
         ]
-    lines += [
-        "",
-        "tracevet is not a medical device and does not diagnose; these sign-offs record review decisions only.",
-        "",
-    ]
+    lines += ["", CAUTION, "These sign-offs record review decisions only.", ""]
     return "\n".join(lines)

@@ -18,14 +18,15 @@ A summary holds: ``id``, ``source_name``, ``added``, ``origin``, ``kind``,
 ``units``, ``fs``, ``n_channels``, ``n_samples``, ``duration_s``, ``original_sha256``,
 ``runs`` (count), ``current_run`` (newest run id or None),
 ``worst_severity``, ``n_flags`` (of the newest run) and
-``last_decision`` (decision, run, reviewer, time, seq, note, newest_run)
-or None.
+``last_decision`` (decision, run, reviewer, time, seq, note, newest_run,
+requested_settings, hash, overrides) or None.
 """
 
 from __future__ import annotations
 
 import json
 import os
+from typing import Any
 
 
 from tracevet.recording.atomic import write_text_atomic
@@ -34,6 +35,7 @@ from tracevet.workqueue.layout import FILE_MODE, QueuePaths
 from tracevet.workqueue.log import LogEntry, read_log
 from tracevet.workqueue.records import list_record_ids, read_meta
 from tracevet.workqueue.runs import list_runs, read_run_meta
+from tracevet.workqueue.states import STATE_AFTER, RecordState
 
 INDEX_VERSION = 1
 _META_KEYS = (
@@ -41,21 +43,19 @@ _META_KEYS = (
 )
 _MIN_COMPACT_BYTES = 256 * 1024
 
-# Record states (plain words of our own).
-TO_CLEAN = "to-clean"          # waiting to be cleaned
-TO_REVIEW = "to-review"        # cleaned and assessed, ready for review
-IN_REVIEW = "in-review"        # a reviewer holds a live claim on it
-ACCEPTED = "accepted"
-REJECTED = "rejected"
-SENT_BACK = "sent-back"        # sent back for a re-run, waiting for 'tracevet clean'
-STATES = (TO_CLEAN, TO_REVIEW, IN_REVIEW, ACCEPTED, REJECTED, SENT_BACK)
-_DECIDED_STATE = {"accept": ACCEPTED, "reject": REJECTED, "rerun": SENT_BACK}
+# Record states: one owner (tracevet.workqueue.states); the short names stay importable from here.
+TO_CLEAN = RecordState.TO_CLEAN
+TO_REVIEW = RecordState.TO_REVIEW
+IN_REVIEW = RecordState.IN_REVIEW
+ACCEPTED = RecordState.ACCEPTED
+REJECTED = RecordState.REJECTED
+SENT_BACK = RecordState.SENT_BACK
 
 
 def summary_from_files(paths: QueuePaths, record_id: str, last_decision: dict | None = None) -> dict:
     """Build a record's summary from ``record.json`` and its runs' ``run.json``."""
     meta = read_meta(paths, record_id)
-    summary = {"id": record_id}
+    summary: dict[str, Any] = {"id": record_id}
     summary.update({k: meta.get(k) for k in _META_KEYS})
     apply_runs(paths, summary)
     summary["last_decision"] = last_decision
@@ -87,10 +87,12 @@ def decision_summary(entry: LogEntry) -> dict:
         "note": note if len(note) <= 200 else note[:199] + "…",
         "newest_run": entry.get("newest_run"),
         "requested_settings": entry.get("requested_settings"),
+        "hash": entry.hash,
+        "overrides": entry.get("overrides"),
     }
 
 
-def base_state(summary: dict) -> str:
+def base_state(summary: dict) -> RecordState:
     """A record's state from its summary alone (claims not considered)."""
     decision = summary.get("last_decision")
     current = summary.get("current_run")
@@ -102,7 +104,7 @@ def base_state(summary: dict) -> str:
             return TO_REVIEW
     except Exception:  # a damaged summary: treat the newest run as unreviewed
         return TO_REVIEW
-    return _DECIDED_STATE.get(decision.get("decision"), TO_REVIEW)
+    return STATE_AFTER.get(decision.get("decision"), TO_REVIEW)
 
 
 class Index:

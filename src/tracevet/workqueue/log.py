@@ -386,7 +386,8 @@ def chain_problems(contents: LogContents, head: dict | None) -> list[tuple[int |
                 )
             )
         prev = stored if isinstance(stored, str) else ""
-        expected_seq = (data.get("seq") if isinstance(data.get("seq"), int) else expected_seq) + 1
+        seq = data.get("seq")
+        expected_seq = (seq if isinstance(seq, int) else expected_seq) + 1
         if data.get("event") not in EVENTS:
             problems.append((entry.line, record, f"unknown event {str(data.get('event'))[:20]!r}"))
     if contents.torn is not None:

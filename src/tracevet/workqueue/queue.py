@@ -6,7 +6,7 @@ import getpass
 import os
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import Callable, Iterable, Sequence
+from typing import Any, Callable, Iterable, Sequence
 
 from tracevet.errors import InputError, TracevetError
 from tracevet.recording import Recording, read_recording
@@ -16,11 +16,9 @@ from tracevet.workqueue import index as index_mod
 from tracevet.workqueue import log as log_mod
 from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.claims import Claim, ClaimedByOther
-from tracevet.workqueue.ids import CaseFoldedIds, check_record_id, make_record_id
+from tracevet.workqueue.ids import CaseFoldedIds, check_record_id, make_record_id, run_number
 from tracevet.workqueue.index import (
-    ACCEPTED,
     IN_REVIEW,
-    REJECTED,
     SENT_BACK,
     TO_REVIEW,
     Index,
@@ -53,24 +51,44 @@ from tracevet.workqueue.runs import (
     load_assessment,
     load_cleaned,
     run_info,
+    run_with_token,
     write_run_meta,
 )
 from tracevet.workqueue.settings import QueueSettings, new_settings, read_settings
+from tracevet.workqueue.states import DECISION_PAST, DECIDED_STATES, RecordState
+from tracevet.text import inert
 
 MAX_NOTE_LENGTH = 10_000
 MAX_REVIEWER_LENGTH = 100
 _SEVERITY_ORDER = {"fail": 0, "warn": 1, None: 2}
 
 
+REVIEWER_ENV = "TRACEVET_REVIEWER"
+
+
 def default_reviewer() -> str:
-    """The reviewer name when none is given: ``$TRACEVET_REVIEWER``, else the login name."""
-    name = os.environ.get("TRACEVET_REVIEWER", "").strip()
+    """The reviewer name when none is given: the one rule shared by the CLI and the app.
+
+    ``$TRACEVET_REVIEWER`` if set, else the login name, else (no login name
+    known, as in some containers) ``uid-N`` with the numeric user id, so the
+    same person is always recorded under the same name.
+    """
+    name = os.environ.get(REVIEWER_ENV, "").strip()
     if name:
         return name
     try:
-        return getpass.getuser()
-    except (KeyError, OSError):
-        return "unknown"
+        login = getpass.getuser().strip()
+    except (KeyError, OSError, ImportError):
+        login = ""
+    if login:
+        return login
+    getuid = getattr(os, "getuid", None)
+    return f"uid-{getuid()}" if getuid is not None else "uid-unknown"
+
+
+def resolve_reviewer(given: str | None, source: str = "--reviewer") -> str:
+    """The reviewer name to write: ``given`` if not None, else :func:`default_reviewer`; checked."""
+    return check_reviewer(default_reviewer() if given is None else given, source)
 
 
 def check_reviewer(name: object, source: str = "--reviewer") -> str:
@@ -94,6 +112,79 @@ def check_note(note: object, source: str = "--note") -> str:
 
 
 @dataclass(frozen=True)
+class LastDecision:
+    """The newest decision on a record, as the index keeps it (display every text inert).
+
+    Attributes
+    ----------
+    decision : str
+        ``accept``, ``reject`` or ``rerun``.
+    run, reviewer, time : str
+        The run signed off, who decided, UTC time (ISO 8601).
+    seq : int
+        The log entry (line number of ``decisions.jsonl``).
+    note : str
+        The note, cut to 200 characters.
+    hash : str or None
+        The log entry's hash (None in indexes written before it was kept).
+    overrides : dict or None
+        When this decision overrode an earlier one: that entry's ``seq``,
+        ``hash``, ``reviewer``, ``decision`` and ``run``.
+    newest_run : str or None
+        The record's newest run when the decision was made.
+    """
+
+    decision: str
+    run: str
+    reviewer: str
+    time: str
+    seq: int
+    note: str
+    hash: str | None = None
+    overrides: dict | None = None
+    newest_run: str | None = None
+
+    @classmethod
+    def from_summary(cls, data: dict | None) -> "LastDecision | None":
+        """Build from the index's ``last_decision`` dict (None stays None)."""
+        if not isinstance(data, dict) or not data.get("decision"):
+            return None
+        overrides = data.get("overrides")
+        return cls(
+            decision=str(data.get("decision") or ""),
+            run=str(data.get("run") or ""),
+            reviewer=str(data.get("reviewer") or ""),
+            time=str(data.get("time") or ""),
+            seq=int(data.get("seq") or 0),
+            note=str(data.get("note") or ""),
+            hash=None if data.get("hash") is None else str(data["hash"]),
+            overrides=overrides if isinstance(overrides, dict) else None,
+            newest_run=None if data.get("newest_run") is None else str(data["newest_run"]),
+        )
+
+    @property
+    def past_tense(self) -> str:
+        """``accepted``, ``rejected`` or ``sent back for a re-run``."""
+        return DECISION_PAST.get(self.decision, self.decision)
+
+
+class DecisionOverride(TracevetError):
+    """Deciding would override another reviewer's decision, and no override was asked for.
+
+    ``previous`` is that decision (:class:`LastDecision`).
+    """
+
+    def __init__(self, record: str, previous: LastDecision):
+        self.record = record
+        self.previous = previous
+        when = previous.time[:16].replace("T", " ")
+        super().__init__(
+            f"{record}: {previous.past_tense} by {inert(previous.reviewer, 60)} at {when} UTC "
+            f"(log entry {previous.seq}); deciding over another reviewer's decision needs --override"
+        )
+
+
+@dataclass(frozen=True)
 class RecordSummary:
     """One record as the worklist shows it (from the index; no data file read).
 
@@ -101,9 +192,9 @@ class RecordSummary:
     ----------
     id : str
         Record id (safe folder name).
-    state : str
+    state : RecordState
         ``to-clean``, ``to-review``, ``in-review``, ``accepted``, ``rejected``
-        or ``sent-back``.
+        or ``sent-back`` (a ``StrEnum``: compares equal to those words).
     source_name : str
         The file name the record was added from, as given (display it inert).
     kind, units : str or None
@@ -130,7 +221,7 @@ class RecordSummary:
     """
 
     id: str
-    state: str
+    state: RecordState
     source_name: str
     kind: str | None
     units: str | None
@@ -147,6 +238,30 @@ class RecordSummary:
     n_runs: int
     origin: str
     added: str
+
+    @property
+    def last(self) -> LastDecision | None:
+        """The newest decision, typed (``last_decision`` is the same as stored)."""
+        return LastDecision.from_summary(self.last_decision)
+
+    @property
+    def standing_decision(self) -> LastDecision | None:
+        """The newest decision if it still stands (no run was added after it), else None."""
+        last = self.last
+        if last is None:
+            return None
+        try:
+            newest_then = last.newest_run
+            if self.current_run_id and (not newest_then or run_number(self.current_run_id) > run_number(newest_then)):
+                return None
+        except Exception:  # a damaged summary: treat the newest run as unreviewed, as base_state does
+            return None
+        return last
+
+    @property
+    def holder_live(self) -> bool:
+        """Someone holds a claim that may not be taken over."""
+        return self.holder is not None and not self.holder_stale
 
 
 def _summary_to_record(summary: dict, claim: Claim | None, idle_minutes: float) -> RecordSummary:
@@ -309,7 +424,7 @@ class Queue:
             free = item.holder is None or item.holder_stale or mine
             if not free:
                 continue
-            if item.state in (TO_REVIEW, IN_REVIEW) or (mine and item.state not in (ACCEPTED, REJECTED, SENT_BACK)):
+            if item.state in (TO_REVIEW, IN_REVIEW) or (mine and item.state not in DECIDED_STATES):
                 candidates.append((0 if mine else 1, _SEVERITY_ORDER.get(item.worst_severity, 2), item.id))
         return min(candidates)[2] if candidates else None
 
@@ -342,6 +457,10 @@ class Queue:
         with self._lock():
             return claims_mod.release(self.paths, record_id, reviewer)
 
+    def holder(self, record_id: str) -> Claim | None:
+        """The claim on one record, or None (reads one small file; for polling a held record)."""
+        return claims_mod.read_claim(self.paths, check_record_id(record_id))
+
     def claims(self) -> dict[str, Claim]:
         """Every current claim by record id."""
         return claims_mod.all_claims(self.paths)
@@ -355,6 +474,7 @@ class Queue:
         reviewer: str,
         run_id: str | None = None,
         requested_settings=None,
+        override: bool = False,
     ) -> LogEntry:
         """Record a decision on a run (default: the newest) and return the log entry.
 
@@ -365,10 +485,18 @@ class Queue:
         The entry is fsynced before this returns; the reviewer's claim on the
         record ends with the decision.
 
+        A decision that still stands (no run was added since) by *another*
+        reviewer is overridden only with ``override=True``; the new entry
+        then names the entry it overrides (``overrides``: its ``seq``,
+        ``hash``, ``reviewer``, ``decision`` and ``run``), as it does when a
+        reviewer changes their own standing decision.
+
         Raises
         ------
         ClaimedByOther
             Another reviewer holds a live claim on the record.
+        DecisionOverride
+            Another reviewer's decision stands and ``override`` is False.
         InputError
             Unknown record or run, missing note, or data that no longer match
             their checksums.
@@ -423,6 +551,17 @@ class Queue:
             bodies = []
             if stale is not None:
                 bodies.append(_takeover_body(record_id, reviewer, stale, reason))
+            previous = self._standing_decision(record_id)
+            if previous is not None:
+                if previous.reviewer != reviewer and not override:
+                    raise DecisionOverride(record_id, previous)
+                body["overrides"] = {
+                    "seq": previous.seq,
+                    "hash": previous.hash or self._entry_hash(previous.seq),
+                    "reviewer": previous.reviewer,
+                    "decision": previous.decision,
+                    "run": previous.run,
+                }
             own = claims_mod.read_claim(self.paths, record_id)
             body["claim"] = own.to_dict() if own is not None and own.reviewer == reviewer else None
             runs_now = list_runs(self.paths, record_id)
@@ -436,6 +575,24 @@ class Queue:
             if holder is not None and (holder.reviewer == reviewer or stale is not None):
                 self.paths.claim_file(record_id).unlink(missing_ok=True)  # a decision ends the claim
         return entry
+
+    def _standing_decision(self, record_id: str) -> LastDecision | None:
+        """The record's newest decision if it still stands (no run added since); queue lock held."""
+        stored = Index.load(self.paths).records.get(record_id)
+        if not stored or not stored.get("last_decision"):
+            return None
+        summary = dict(stored)
+        apply_runs(self.paths, summary)
+        if base_state(summary) not in DECIDED_STATES:
+            return None
+        return LastDecision.from_summary(summary["last_decision"])
+
+    def _entry_hash(self, seq: int) -> str | None:
+        """Hash of log entry ``seq`` (indexes written before hashes were kept); queue lock held."""
+        for entry in log_mod.read_log(self.paths.log).entries:
+            if entry.seq == seq:
+                return entry.hash
+        return None
 
     # -------------------------------------------------------------------- runs
     def _settings_object(self, settings, source: str):
@@ -465,7 +622,7 @@ class Queue:
         another reviewer holds the record, and the run records who asked.
         """
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
         record_id = check_record_id(record_id)
         if reviewer is not None:
@@ -474,9 +631,9 @@ class Queue:
                 claims_mod.check_holder(self.paths, record_id, reviewer, self.settings.claim_idle_minutes)
         settings = self._settings_object(settings, "settings")
         original = self.load_original(record_id)
-        cleaned = clean(original, settings, progress=progress)
+        cleaned, report = clean_with_report(original, settings, progress=progress)
         assessment = assess(original, cleaned, limits=self.settings.limits())
-        return self.store_run(record_id, cleaned, assessment, settings, made_by=reviewer)
+        return self.store_run(record_id, cleaned, assessment, report.settings, made_by=reviewer, report=report)
 
     def store_run(
         self,
@@ -486,12 +643,30 @@ class Queue:
         settings,
         made_by: str | None = None,
         update_index: bool = True,
+        batch_token: str | None = None,
+        extra: dict | None = None,
+        report=None,
     ) -> str:
-        """Write an already computed run into the record (whole or not at all); return its id."""
+        """Write an already computed run into the record (whole or not at all); return its id.
+
+        ``settings`` are those applied (``report.settings`` of
+        ``tracevet.cleaning.clean_with_report``); ``report`` adds what ``mains: auto`` found.
+        With ``batch_token``, storing is idempotent: if a run of this record
+        already carries the token (run.json ``batch``), its id is returned and
+        nothing is written, so a retried task never leaves two runs.
+        ``extra`` adds keys to run.json (worker, software versions).
+        """
         record_id = check_record_id(record_id)
+        if batch_token is not None:
+            existing = run_with_token(self.paths, record_id, batch_token)
+            if existing is not None:
+                return existing
+            extra = dict(extra or {}, batch=batch_token)
         folder = work_folder(self.paths, "run")
         try:
-            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by)
+            meta = build_run(
+                folder, record_id, cleaned, assessment, settings, made_by=made_by, extra=extra, report=report
+            )
             run_id = commit_run(self.paths, record_id, folder, meta)
         except BaseException:
             _remove_tree(folder)
@@ -515,11 +690,13 @@ class Queue:
 
     # ----------------------------------------------------------------- adding
     def _existing_checksums(self) -> dict[str, str]:
-        return {s.get("original_sha256"): r for r, s in self._index().records.items() if s.get("original_sha256")}
+        return {
+            str(s["original_sha256"]): r for r, s in self._index().records.items() if s.get("original_sha256")
+        }
 
     def _read_input(self, path: Path, fs, kind, units) -> Recording:
         recording = read_recording(path, fs=fs, kind=kind, units=units)
-        changes = {}
+        changes: dict[str, Any] = {}
         if kind is None and recording.kind == "other" and self.settings.default_kind != "other":
             changes["kind"] = self.settings.default_kind
         if units is None and recording.units is None and self.settings.default_units:
@@ -702,8 +879,11 @@ def _takeover_body(record_id: str, reviewer: str, previous: Claim, reason: str |
 
 __all__ = [
     "ClaimedByOther",
+    "DecisionOverride",
+    "LastDecision",
     "Queue",
     "RecordSummary",
     "TracevetError",
     "default_reviewer",
+    "resolve_reviewer",
 ]

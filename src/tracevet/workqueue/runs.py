@@ -70,6 +70,10 @@ class RunInfo:
         SHA-256 of every data file of the run, by file name.
     made_by : str or None
         Reviewer who asked for the run (app re-runs), if any.
+    mains_detection : dict or None
+        With ``mains: auto`` requested: what the detector found (``frequency_hz``,
+        ``strength_dB``, ``amplitude_rms``, ``margin_db``...) and ``applied``
+        (``50``, ``60`` or ``off``, as in ``settings``). None otherwise.
     """
 
     run_id: str
@@ -83,6 +87,7 @@ class RunInfo:
     cleaned_file: str = "cleaned.npz"
     files: dict = field(default_factory=dict)
     made_by: str | None = None
+    mains_detection: dict | None = None
 
     @property
     def cleaned_sha256(self) -> str | None:
@@ -110,21 +115,30 @@ def build_run(
     settings=None,
     cleaned_source: Path | None = None,
     made_by: str | None = None,
+    report=None,
+    extra: dict | None = None,
 ) -> dict:
     """Write a run's files into the empty ``folder``; return its run.json contents (without the id).
 
     Give ``settings`` (a ``CleaningSettings``) and ``cleaned`` for a tracevet
     run, or ``cleaned_source`` (a file cleaned elsewhere, copied byte for
-    byte) for an external one.
+    byte) for an external one. ``report`` (a ``tracevet.cleaning.resolve.CleaningReport``)
+    adds what ``mains: auto`` found; ``settings`` must then be ``report.settings`` (applied).
+    ``extra`` adds keys to run.json (a batch's token, the worker that cleaned it, its software
+    versions); it never replaces the keys written here.
     """
     folder.mkdir(parents=True, exist_ok=True)
     if cleaned_source is not None:
+        source_name = cleaned_source.name
         cleaned_name = f"cleaned{cleaned_source.suffix.lower()}"
         copy_verified(cleaned_source, folder / cleaned_name)
         origin, digest = "external", None
     else:
+        if cleaned is None or settings is None:
+            raise ValueError("a tracevet run needs both the cleaned recording and its settings")
+        done = cleaned
         cleaned_name = "cleaned.npz"
-        write_durable(folder / cleaned_name, lambda handle: write_npz(cleaned, handle))
+        write_durable(folder / cleaned_name, lambda handle: write_npz(done, handle))
         origin = "tracevet"
         digest = settings.digest()
         text = (
@@ -153,9 +167,13 @@ def build_run(
         "host": socket.gethostname(),
         "tracevet_version": __version__,
     }
+    if report is not None and getattr(report, "mains", None) is not None:
+        meta["mains_detection"] = jsonable(dict(report.mains.to_dict(), applied=report.settings.mains))
+    for key, value in (extra or {}).items():
+        meta.setdefault(key, jsonable(value))
     if origin == "external":
         meta["note"] = EXTERNAL_NOTE
-        meta["cleaned_source_name"] = cleaned_source.name
+        meta["cleaned_source_name"] = source_name
     return meta
 
 
@@ -203,6 +221,18 @@ def commit_run(paths: QueuePaths, record_id: str, staged: Path, meta: dict) -> s
         number += 1
 
 
+def run_with_token(paths: QueuePaths, record_id: str, token: str) -> str | None:
+    """The run of a record made under batch token ``token``, if one was stored (newest runs first)."""
+    for run_id in reversed(list_runs(paths, record_id)):
+        try:
+            meta = json.loads((paths.run_dir(record_id, run_id) / RUN_META).read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue
+        if isinstance(meta, dict) and meta.get("batch") == token:
+            return run_id
+    return None
+
+
 def read_run_meta(paths: QueuePaths, record_id: str, run_id: str) -> dict:
     """``run.json`` of a run; InputError if the run does not exist or is damaged."""
     check_record_id(record_id)
@@ -240,7 +270,8 @@ def run_info(paths: QueuePaths, record_id: str, run_id: str, with_settings: bool
 
 def info_from_meta(meta: dict, settings: dict | None, run_id: str) -> RunInfo:
     """A :class:`RunInfo` from the contents of ``run.json``."""
-    flags = meta.get("flags") if isinstance(meta.get("flags"), list) else []
+    stored_flags = meta.get("flags")
+    flags = stored_flags if isinstance(stored_flags, list) else []
     return RunInfo(
         run_id=run_id,
         created=str(meta.get("created", "")),
@@ -253,6 +284,7 @@ def info_from_meta(meta: dict, settings: dict | None, run_id: str) -> RunInfo:
         cleaned_file=str(meta.get("cleaned", "cleaned.npz")),
         files=dict(meta.get("files") or {}),
         made_by=meta.get("made_by"),
+        mains_detection=meta.get("mains_detection") if isinstance(meta.get("mains_detection"), dict) else None,
     )
 
 

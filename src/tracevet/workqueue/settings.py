@@ -33,7 +33,16 @@ from tracevet.safe_yaml import load_yaml
 from tracevet.workqueue.layout import FORMAT_VERSION, MARKER_KEY
 
 DEFAULT_IDLE_MINUTES = 30.0
-_KNOWN_KEYS = {MARKER_KEY, "queue_id", "created", "cleaning", "flag_limits", "defaults", "claim_idle_minutes"}
+_KNOWN_KEYS = {
+    MARKER_KEY,
+    "queue_id",
+    "created",
+    "cleaning",
+    "flag_limits",
+    "defaults",
+    "claim_idle_minutes",
+    "cluster",
+}
 
 
 def utc_now_text() -> str:
@@ -59,6 +68,10 @@ class QueueSettings:
         Metadata for files that carry none.
     claim_idle_minutes : float
         A claim idle for longer may be taken over.
+    cluster : str, dict or None
+        Dask scheduler ``tracevet clean`` sends work to (an address, or a
+        mapping checked by :func:`tracevet.workqueue.cluster.cluster_settings`);
+        None: the local process pool.
     source : str
         The file the settings came from, for messages.
     """
@@ -71,6 +84,7 @@ class QueueSettings:
     default_units: str | None = "mV"
     claim_idle_minutes: float = DEFAULT_IDLE_MINUTES
     source: str = "queue.yaml"
+    cluster: object = None
 
     def cleaning_settings(self, overrides: list[str] | None = None):
         """The queue's default ``CleaningSettings`` (optionally with ``k=v`` overrides)."""
@@ -110,6 +124,11 @@ class QueueSettings:
             "# a claim idle for this many minutes may be taken over by another reviewer",
             f"claim_idle_minutes: {self.claim_idle_minutes:g}",
         ]
+        if self.cluster not in (None, "", {}):
+            lines += [
+                "# Dask scheduler 'tracevet clean' sends work to (docs/cluster.md)",
+                dump({"cluster": self.cluster}),
+            ]
         return "\n".join(lines) + "\n"
 
 
@@ -191,4 +210,18 @@ def read_settings(path: Path) -> QueueSettings:
             data.get("claim_idle_minutes", DEFAULT_IDLE_MINUTES), f"{source}: claim_idle_minutes"
         ),
         source=source,
+        cluster=_check_cluster(data.get("cluster"), f"{source}: cluster"),
     )
+
+
+def _check_cluster(value: object, source: str):
+    """The ``cluster:`` setting as written (None when absent); checked in full by ``tracevet clean``.
+
+    Only its shape is checked here: opening a queue for review must not
+    depend on certificate files that only the machine running ``clean`` has.
+    """
+    if value in (None, "", {}):
+        return None
+    if not isinstance(value, (str, dict)):
+        raise InputError(source, "must be a scheduler address or a mapping with 'address'")
+    return value

@@ -124,11 +124,12 @@ def verify_queue(queue, rebuild_index: bool = True) -> list[Problem]:
 
     added = set()
     for entry in contents.entries:
-        record_id = entry.record
-        if entry.event == "add" and isinstance(record_id, str):
-            added.add(record_id)
-        if entry.event not in ("add", "decision") or not isinstance(record_id, str):
+        named = entry.record
+        if entry.event == "add" and isinstance(named, str):
+            added.add(named)
+        if entry.event not in ("add", "decision") or not isinstance(named, str):
             continue
+        record_id = named
         where = _line_where(entry.line)
         meta = known_records.get(record_id)
         if meta is None:
@@ -237,7 +238,8 @@ def _check_record(paths, record_id: str, sums: _Sums, known: dict) -> list[Probl
                 )
             )
             continue
-        files = run.get("files") if isinstance(run.get("files"), dict) else {}
+        stored_files = run.get("files")
+        files = stored_files if isinstance(stored_files, dict) else {}
         for name, expected in sorted(files.items()):
             target = folder / str(name)
             if "/" in str(name) or "\\" in str(name):
