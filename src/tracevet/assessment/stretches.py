@@ -566,10 +566,11 @@ def baseline_excursions(
     keeps, partly removes or flattens the original's baseline wander,
     positive for a level shift or the start-up swoop of a high-pass filter. Interior
     beats are judged through the running median over :data:`STRETCH_BEATS`
-    beats; the first and last beat of the record, of each stretch between
-    pauses, and the trace before the first and after the last beat window
-    are judged alone (an excursion added at an end decays within a few
-    beats), with :data:`END_K` standard errors of a single beat's level.
+    beats; the first and last beat of the record and of each stretch between
+    pauses are judged alone (an excursion added at an end decays within a few
+    beats), with :data:`END_K` standard errors of a single beat's level. The
+    trace before the first and after the last whole beat window is left to
+    the edge check (:func:`~tracevet.assessment.signal_checks.edge_deviation`).
 
     Parameters
     ----------
@@ -580,30 +581,19 @@ def baseline_excursions(
         after the noise allowance, are returned).
     """
     n = original.size
-    if centres.size == 0 or warn is None:
+    whole = (centres >= pre) & (centres < n - post)  # beats with their whole window (anchors) in the trace
+    centres, labels = centres[whole], labels[whole]
+    if centres.size < 2 or warn is None:
         return Excursions(None, [], 0, 0, 0.0)
     edge = max(1, int(round(0.03 * fs)))
     lx = anchor_levels(original, centres, pre, post, iso, edge)
     ly = anchor_levels(cleaned, centres, pre, post, iso, edge)
     times = centres / fs
     group = np.where(labels == 1, 1.0, 0.0)
-    # The trace before the first and after the last beat window, when there
-    # is room, enters as one more level each (median of the samples there).
-    ends = []
-    room = int(round(0.25 * fs))
-    first_lo, last_hi = int(centres[0]) - pre, int(centres[-1]) + post + 1
-    if first_lo >= room:
-        ends.append((0, first_lo))
-    if n - last_hi >= room:
-        ends.append((last_hi, n))
-    for a, b in ends:
-        lx = np.append(lx, float(np.median(original[a:b])))
-        ly = np.append(ly, float(np.median(cleaned[a:b])))
-        times = np.append(times, (a + b) / 2.0 / fs)
-        group = np.append(group, 0.0)
+    removed = lx - ly
     widths = tuple(max(1, int(round(w * fs))) for w in LEVEL_SCALES_S)
     slow = trace_means(original, np.round(times * fs).astype(np.int64), widths)
-    excess = unexplained_level(lx, ly, slow, group) * to_limit_unit
+    excess = unexplained_level(lx, removed, slow, group) * to_limit_unit
     n_beats = centres.size
     sigma = robust_sigma(excess[:n_beats])
     # Beyond what the interior shows: the residual's own robust spread over
@@ -622,17 +612,16 @@ def baseline_excursions(
     beyond[end_beats[end_hit]] = True
     values.append(float(np.max(excess[end_beats])))
     spans = [((int(c) - pre) / fs, (int(c) + post) / fs) for c in centres[beyond]]
-    for j, (a, b) in enumerate(ends):
-        e = float(excess[n_beats + j])
-        values.append(e)
-        if e > max(warn, allow_end):
-            spans.append((a / fs, b / fs))
     spans = [(max(0.0, a), min(n / fs, b)) for a, b in spans]
     return Excursions(max(values), spans, int(np.sum(beyond)), int(n_beats), max(allow_stretch, 0.0))
 
 
 # Robust s.d. of the unexplained level over the record an excursion must exceed (common practice).
 LEVEL_K = 4.0
+# Share of the removed level by which a cleaning's baseline estimate may differ
+# from a linear smoothing of the original (a running median under ectopic
+# beats, a filter's side lobes); our choice, tuned on tests/fidelity_cases.py.
+FIT_TOLERANCE = 0.25
 # Time scales (s) of the slow content of the original a cleaning may remove.
 LEVEL_SCALES_S = (1.0, 2.0, 4.0, 8.0, 16.0, 32.0)
 
@@ -666,8 +655,8 @@ def trace_means(signal: np.ndarray, at: np.ndarray, widths: tuple, chunk: int = 
     return sums / np.maximum(hi - lo, 1)
 
 
-def unexplained_level(lx: np.ndarray, ly: np.ndarray, slow: np.ndarray, group: np.ndarray) -> np.ndarray:
-    """The part of the removed level ``lx - ly`` that no slow version of the original's level explains.
+def unexplained_level(lx: np.ndarray, removed: np.ndarray, slow: np.ndarray, group: np.ndarray) -> np.ndarray:
+    """The part of the removed level (``removed``, original minus cleaned) that no slow version of the original explains.
 
     A cleaning that removes baseline wander takes out a slow (low-passed)
     version of the original, whatever its cutoff: nothing, part or all of
@@ -679,7 +668,8 @@ def unexplained_level(lx: np.ndarray, ly: np.ndarray, slow: np.ndarray, group: n
     whose residual is beyond 2.5 robust s.d. until the set settles (robust
     regression by trimming, common practice). A level shift or a
     start-up swoop the cleaning added is not in the original and stays in
-    the residual, which is returned (absolute value, record units).
+    the residual. Returned: the residual's size less :data:`FIT_TOLERANCE`
+    times the removed level's own size (record units, >= 0).
     """
     from scipy.optimize import nnls
 
@@ -693,7 +683,7 @@ def unexplained_level(lx: np.ndarray, ly: np.ndarray, slow: np.ndarray, group: n
     if np.any(group > 0):
         columns += [group, -group]
     design = np.stack(columns, axis=1)
-    target = lx - ly
+    target = removed
     scale = np.maximum(np.abs(design).max(axis=0), 1e-300)
     design = design / scale
     keep = np.ones(target.size, dtype=bool)
@@ -705,13 +695,18 @@ def unexplained_level(lx: np.ndarray, ly: np.ndarray, slow: np.ndarray, group: n
         if keep.sum() <= 8:
             break
         coef, _ = nnls(design[keep], target[keep])
-        residual = target - design @ coef
+        # No extrapolation: each column held to the range of the beats fitted.
+        held = np.clip(design, design[keep].min(axis=0), design[keep].max(axis=0))
+        residual = target - held @ coef
         spread = MAD_TO_SD * float(np.median(np.abs(residual[keep])))
         new_keep = np.abs(residual) <= 2.5 * spread if spread > 0 else keep
         if np.array_equal(new_keep, keep) or new_keep.sum() <= 8:
             break
         keep = new_keep
-    return np.abs(residual)
+    # A cleaning's own baseline estimate (a running median, a filter with
+    # side lobes) differs from any such smoothing by part of what it removes.
+    size = np.abs(target - np.median(target))
+    return np.maximum(0.0, np.abs(residual) - FIT_TOLERANCE * size)
 
 
 def excursion_flag(channel: str, exc: Excursions, limits: Limits, amp_unit: str) -> Flag | None:
