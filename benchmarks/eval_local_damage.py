@@ -53,7 +53,6 @@ import argparse
 import sys
 import time
 import traceback
-from collections import defaultdict
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -145,8 +144,8 @@ def sources(quick: bool, seed0: int):
         hr = float(rng.uniform(45, 110))
         ect = int(rng.choice([0, 0, 5, 8])) or None
         seed = seed0 + i
-        rec = syn.synthetic_ecg(dur, fs, heart_rate_bpm=hr, ectopic_every=ect, amplitude_mv=float(rng.uniform(0.7, 1.8)),
-                                seed=seed)
+        amp_mv = float(rng.uniform(0.7, 1.8))
+        rec = syn.synthetic_ecg(dur, fs, heart_rate_bpm=hr, ectopic_every=ect, amplitude_mv=amp_mv, seed=seed)
         noise, mains, kind = _noise(rng, rec.signal.size, fs, rec.signal, 1.0)
         p, t, amp = _wave_offsets(rec.signal, rec.r_peaks[rec.beat_labels == "N"], fs)
         yield Source(f"ecg-{fs:g}Hz-{hr:.0f}bpm-{kind}-{dur:.0f}s-s{seed}", f"synthetic-ecg-{fs:g}Hz", fs, "mV", "ecg",
@@ -157,14 +156,14 @@ def sources(quick: bool, seed0: int):
         seed = seed0 + 500 + i
         rec = syn.synthetic_mcg(dur, fs, heart_rate_bpm=float(rng.uniform(50, 100)), seed=seed)
         n = rec.signal.size
-        noise = syn.white_noise(n, rng.uniform(0.5, 2.0), seed=seed) + syn.baseline_wander(n, fs, rng.uniform(2, 8),
-                                                                                            seed=seed + 1)
+        noise = syn.white_noise(n, rng.uniform(0.5, 2.0), seed=seed)
+        noise += syn.baseline_wander(n, fs, rng.uniform(2, 8), seed=seed + 1)
         p, t, amp = _wave_offsets(rec.signal, rec.r_peaks[rec.beat_labels == "N"], fs)
-        yield Source(f"mcg-{fs:g}Hz-{dur:.0f}s-s{seed}", "synthetic-mcg", fs, "pT", "mcg", rec.signal + noise, rec.signal,
-                     rec.r_peaks, amp, False, "off", p, t)
+        yield Source(f"mcg-{fs:g}Hz-{dur:.0f}s-s{seed}", "synthetic-mcg", fs, "pT", "mcg", rec.signal + noise,
+                     rec.signal, rec.r_peaks, amp, False, "off", p, t)
     with np.load(DATA) as data:
         mv = (data["ecg"].astype(np.float64) - 1024.0) / 200.0
-    for i in range(n_real):
+    for _ in range(n_real):
         dur = float(rng.uniform(30, 120))
         start = float(rng.uniform(0, 300 - dur))
         fs = float(rng.choice([250.0, 360.0, 360.0, 500.0, 1000.0]))
@@ -481,7 +480,8 @@ def main() -> int:
                   f"{[(i, s, [(round(a, 1), round(b, 1)) for a, b in w][:4]) for i, s, w in r['flags']]}")
     print("\nFALSE FLAGS on faithful pairs:")
     for r in ff:
-        print(f"  {r['name']} flags {[(i, s, [(round(a, 1), round(b, 1)) for a, b in w][:4]) for i, s, w in r['flags']]}")
+        shown = [(i, s, [(round(a, 1), round(b, 1)) for a, b in w][:4]) for i, s, w in r["flags"]]
+        print(f"  {r['name']} flags {shown}")
     return 0
 
 

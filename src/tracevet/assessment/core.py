@@ -229,9 +229,9 @@ def assess_channel(
     spec = limits.spec("baseline-excursion")
     warn = spec.warn if limits.absolute else spec.warn_relative
     if to_unit is not None:
-        exc = baseline_excursions(original, cleaned, windows.peaks + windows.offset, labels, fs, windows.pre, windows.post,
-                                  measures.fiducials.iso, to_unit,
-                                  warn if warn is not None else (spec.fail if limits.absolute else spec.fail_relative))
+        lowest = warn if warn is not None else (spec.fail if limits.absolute else spec.fail_relative)
+        exc = baseline_excursions(original, cleaned, windows.peaks + windows.offset, labels, fs, windows.pre,
+                                  windows.post, measures.fiducials.iso, to_unit, lowest)
         metrics["baseline_excursion"] = exc.value
         flag = excursion_flag(channel, exc, limits, amp_unit)
         if flag is not None:
@@ -300,7 +300,9 @@ def _combine(flags: list[Flag], stretch_flags: dict, measured: int, local: dict,
         else:
             chosen = replace(
                 worst.flag,
-                message=f"{worst.flag.message}; worst of {count} stretch(es), at {worst.start_s:.1f}-{worst.end_s:.1f} s",
+                message=(
+                    f"{worst.flag.message}; worst of {count} stretch(es), at {worst.start_s:.1f}-{worst.end_s:.1f} s"
+                ),
             )
             if template is not None and _SEVERITY_RANK[template.severity] > _SEVERITY_RANK[chosen.severity]:
                 chosen = replace(chosen, severity=template.severity)

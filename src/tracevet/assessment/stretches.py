@@ -656,7 +656,7 @@ def trace_means(signal: np.ndarray, at: np.ndarray, widths: tuple, chunk: int = 
 
 
 def unexplained_level(lx: np.ndarray, removed: np.ndarray, slow: np.ndarray, group: np.ndarray) -> np.ndarray:
-    """The part of the removed level (``removed``, original minus cleaned) that no slow version of the original explains.
+    """The part of the removed level (original minus cleaned) that no slow version of the original explains.
 
     A cleaning that removes baseline wander takes out a slow (low-passed)
     version of the original, whatever its cutoff: nothing, part or all of
@@ -719,7 +719,7 @@ def excursion_flag(channel: str, exc: Excursions, limits: Limits, amp_unit: str)
     else:
         warn, fail = spec.warn_relative, spec.fail_relative
     severity, applied = grade(exc.value, warn, fail)
-    if severity is None:
+    if severity is None or applied is None:
         return None
     if amp_unit == "mV":
         size, lim, kind = f"{exc.value:.3f} mV", f"{applied:.3f} mV", "absolute limit in mV (ECG in known units)"
