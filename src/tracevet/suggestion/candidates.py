@@ -16,7 +16,10 @@ dimension                 values tried
 ``baseline``              every baseline method at the base cutoff, and the
                           high-pass at 0.05 and 0.15 Hz (the cutoffs that pass
                           the IEC 60601-2-25 low-frequency impulse test, see
-                          docs/cleaning.md), and ``off``
+                          docs/cleaning.md); ``off`` only when the base
+                          settings have it off (the search never switches
+                          baseline removal off: a stable baseline is what the
+                          ST measure and the reader need)
 ``rule/threshold_mode``   hybrid+garrote, sure+garrote, bayes+garrote,
                           bayes+soft, minimax+garrote, universal+garrote,
                           hybrid+soft, hybrid+hard
@@ -96,7 +99,8 @@ def dimensions(fs: float, base: CleaningSettings) -> list[Dimension]:
             out += _try(partial(replace, s, baseline=method, baseline_cutoff_hz=base.baseline_cutoff_hz))
         for cutoff in BASELINE_CUTOFFS_HZ:
             out += _try(partial(replace, s, baseline="butterworth", baseline_cutoff_hz=cutoff))
-        out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
+        if base.baseline == "off":
+            out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
         return out
 
     def rule_mode(s: CleaningSettings) -> list[CleaningSettings]:

@@ -527,7 +527,7 @@ class Queue:
         requested = None
         if decision == "rerun" and requested_settings is not None:
             requested = self._settings_object(requested_settings, "requested settings")
-        body = {
+        body: dict[str, Any] = {
             "event": "decision",
             "record": record_id,
             "run": run_id,
@@ -543,6 +543,9 @@ class Queue:
             "flags": info.flags,
             "worst_severity": info.worst_severity,
         }
+        if info.suggestion is not None:  # a decision on a suggested run says so
+            body["suggested"] = True
+            body["candidate_set_digest"] = info.suggestion.get("candidate_set_digest")
         if requested is not None:
             body["requested_settings"] = requested.to_dict()
             body["requested_settings_digest"] = requested.digest()

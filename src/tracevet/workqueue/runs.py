@@ -70,6 +70,10 @@ class RunInfo:
         SHA-256 of every data file of the run, by file name.
     made_by : str or None
         Reviewer who asked for the run (app re-runs), if any.
+    suggestion : dict or None
+        For a run made with suggested settings (``tracevet clean --suggest``, the
+        review app): ``candidate_set_digest``, ``candidates_evaluated``,
+        ``searched_on``, ``noise_removed_db``, ``reason``. None otherwise.
     mains_detection : dict or None
         With ``mains: auto`` requested: what the detector found (``frequency_hz``,
         ``strength_dB``, ``amplitude_rms``, ``margin_db``...) and ``applied``
@@ -87,6 +91,7 @@ class RunInfo:
     cleaned_file: str = "cleaned.npz"
     files: dict = field(default_factory=dict)
     made_by: str | None = None
+    suggestion: dict | None = None
     mains_detection: dict | None = None
 
     @property
@@ -284,6 +289,7 @@ def info_from_meta(meta: dict, settings: dict | None, run_id: str) -> RunInfo:
         cleaned_file=str(meta.get("cleaned", "cleaned.npz")),
         files=dict(meta.get("files") or {}),
         made_by=meta.get("made_by"),
+        suggestion=meta.get("suggested") if isinstance(meta.get("suggested"), dict) else None,
         mains_detection=meta.get("mains_detection") if isinstance(meta.get("mains_detection"), dict) else None,
     )
 
