@@ -272,11 +272,16 @@ def median_standard_error(values: np.ndarray, axis: int = 0) -> np.ndarray:
 
 
 def windows_at(
-    original: np.ndarray, cleaned: np.ndarray, centres: np.ndarray, like: BeatWindows, align: bool = False
+    original: np.ndarray,
+    cleaned: np.ndarray,
+    centres: np.ndarray,
+    like: BeatWindows,
+    align: bool = False,
+    most_beats: int = MAX_TEMPLATE_BEATS,
 ) -> BeatWindows | None:
     """Beat windows of ``original`` and ``cleaned`` at ``centres``, shaped like ``like`` (same rate and bounds).
 
-    At most :data:`MAX_TEMPLATE_BEATS` centres are used, spread evenly. With
+    At most ``most_beats`` centres are used, spread evenly. With
     ``align`` the centres are first aligned on their own median QRS (as
     :func:`build_windows` does for the dominant beats). Returns ``None``
     when fewer than two whole windows remain.
@@ -284,7 +289,7 @@ def windows_at(
     fs, pre, post = like.fs, like.pre, like.post
     n_samples = original.size
     centres = np.asarray(centres, dtype=np.int64)
-    most = max(50, min(MAX_TEMPLATE_BEATS, MAX_WINDOW_VALUES // (pre + post + 1)))
+    most = max(50, min(most_beats, MAX_WINDOW_VALUES // (pre + post + 1)))
     if centres.size > most:
         centres = centres[np.linspace(0, centres.size - 1, most).round().astype(np.int64)]
     offset = 0

@@ -61,8 +61,10 @@ SCREEN_FRACTION = 0.6
 SCREEN_K = 4.0
 # Beats per vectorised chunk (bounds memory on 24-hour records).
 CHUNK_BEATS = 2048
-# Most candidate stretches confirmed with templates per group (the worst first).
-MAX_CONFIRMED = 40
+# Most candidate stretches confirmed with templates per group (the worst first),
+# and most beats behind a stretch's templates (spread evenly).
+MAX_CONFIRMED = 20
+STRETCH_TEMPLATE_BEATS = 200
 # A pause in the beat sequence longer than max(GAP_MIN_S, GAP_RR x median RR)
 # is not measurable (common practice: a pause of 3 s is a clinical alarm).
 GAP_MIN_S = 3.0
@@ -82,6 +84,9 @@ TEMPLATE_FLAG_IDS = (
     "removed-beat-structure",
     "beat-shape-change",
 )
+
+
+_FLAG_COLUMN = {flag_id: j for j, flag_id in enumerate(TEMPLATE_FLAG_IDS)}
 
 
 def running_median(values: np.ndarray, k: int = STRETCH_BEATS) -> np.ndarray:
@@ -299,7 +304,8 @@ def _chunk_readings(d: np.ndarray, geo: Geometry, previous: dict | None) -> tupl
     m = d.shape[1]
     anchors = np.stack([d[:, : geo.edge].mean(axis=1), d[:, geo.iso].mean(axis=1), d[:, m - geo.edge :].mean(axis=1)],
                        axis=1)
-    linear = d @ geo.weights - anchors @ (geo.basis @ geo.weights)
+    dt = d.dtype
+    linear = (d @ geo.weights.astype(dt) - anchors @ (geo.basis @ geo.weights).astype(dt)).astype(np.float64)
     out: dict = {}
     plain = len(geo.names) - geo.widths
     for j, name in enumerate(geo.names[:plain]):
@@ -308,11 +314,11 @@ def _chunk_readings(d: np.ndarray, geo: Geometry, previous: dict | None) -> tupl
         out["width"] = np.median(linear[:, plain:], axis=1)
     # Energies from products of neighbouring beats: the noise of two beats is
     # independent, so <a_i, a_(i-1)> estimates the beat-locked energy alone.
-    blocks = _block_means(d, geo.block) - anchors @ geo.basis_blocks
+    blocks = (_block_means(d, geo.block) - anchors @ geo.basis_blocks.astype(dt)).astype(np.float64)
     blocks -= blocks.mean(axis=1, keepdims=True)
     parts = {"shape": blocks}
     for j, flank in enumerate(geo.flanks[:2]):
-        parts[f"ring{j}"] = detrended(d[:, flank] - anchors @ geo.basis[:, flank])
+        parts[f"ring{j}"] = detrended((d[:, flank] - anchors @ geo.basis[:, flank].astype(dt)).astype(np.float64))
     carry = {}
     for name, rows in parts.items():
         before = previous[name] if previous is not None else rows[:1]
@@ -329,8 +335,10 @@ def screen_readings(original: np.ndarray, cleaned: np.ndarray, centres: np.ndarr
     carry = None
     for start in range(0, centres.size, CHUNK_BEATS):
         part = centres[start : start + CHUNK_BEATS]
-        d = cut_windows(original, part, geo.pre, geo.post).astype(np.float64)
-        d -= cut_windows(cleaned, part, geo.pre, geo.post)
+        # In the traces' own precision (float32 halves the memory traffic of a long record).
+        d = cut_windows(original, part, geo.pre, geo.post) - cut_windows(cleaned, part, geo.pre, geo.post)
+        if d.dtype != np.float32:
+            d = d.astype(np.float64, copy=False)
         out, carry = _chunk_readings(d, geo, carry)
         for name, values in out.items():
             readings.setdefault(name, []).append(values)
@@ -348,15 +356,18 @@ def _nominal_warn(flag_id: str, limits: Limits, amplitude: float) -> float | Non
     return spec.warn if spec.warn is not None else spec.fail
 
 
-def screen(readings: dict, geo: Geometry, limits: Limits) -> tuple[np.ndarray, np.ndarray, dict]:
-    """Judge the running medians; return (candidate mask, score, noise per reading).
+def screen(readings: dict, geo: Geometry, limits: Limits) -> tuple[np.ndarray, np.ndarray, dict, np.ndarray]:
+    """Judge the running medians; return (candidate mask, score, noise per reading, witnesses).
 
     ``score`` is the largest ratio, over readings, of a beat's running median
     to its screening level (candidates have score > 1); ``noise`` holds the
-    beat-to-beat s.d. of each reading (for the confirmation's allowance).
+    beat-to-beat s.d. of each reading (for the confirmation's allowance);
+    ``witnesses`` (beats x flags of :data:`TEMPLATE_FLAG_IDS`) which flag's
+    reading passed its screening level at each beat.
     """
     n = next(iter(readings.values())).size if readings else 0
     score = np.zeros(n)
+    witnessed = np.zeros((n, len(TEMPLATE_FLAG_IDS)), dtype=bool)
     noise: dict = {}
     shape_warn = limits.spec("beat-shape-change").warn
     for name, values in readings.items():
@@ -379,7 +390,8 @@ def screen(readings: dict, geo: Geometry, limits: Limits) -> tuple[np.ndarray, n
         med = running_median(values)
         ratio = (med if kind.startswith("energy") else np.abs(med)) / level
         np.maximum(score, ratio, out=score)
-    return score > 1.0, score, noise
+        witnessed[:, _FLAG_COLUMN[flag_id]] |= ratio > 1.0
+    return score > 1.0, score, noise, witnessed
 
 
 # Confirmation allowance from the group's beat-to-beat noise: metric -> (screen
@@ -447,7 +459,7 @@ def assess_group(
         return result
     result.measured = int(centres.size)
     readings = screen_readings(original, cleaned, centres, geo)
-    mask, score, noise = screen(readings, geo, limits)
+    mask, score, noise, witnessed = screen(readings, geo, limits)
     runs = runs_of(mask, MIN_STRETCH_BEATS)
     if not runs:
         return result
@@ -456,7 +468,7 @@ def assess_group(
     fs = windows.fs
     for start, stop in sorted(runs[:MAX_CONFIRMED]):
         beats = centres[start:stop]
-        stretch = windows_at(original, cleaned, beats, windows)
+        stretch = windows_at(original, cleaned, beats, windows, most_beats=STRETCH_TEMPLATE_BEATS)
         if stretch is None:
             continue
         measures = measure_templates(stretch)
@@ -474,7 +486,11 @@ def assess_group(
                 allowance.get("beat_shape_change_energy", 0.0), k * median_se(noise["shape"], n)
             )
         metrics = dict(measures.metrics)
-        flags = [f for f in evaluate(channel, metrics, allowance, limits) if f.id in TEMPLATE_FLAG_IDS]
+        # Two witnesses: the stretch's templates cross the limit, and the
+        # screen reading of the same measure passed its screening level there.
+        seen = witnessed[start:stop].any(axis=0)
+        flags = [f for f in evaluate(channel, metrics, allowance, limits)
+                 if f.id in TEMPLATE_FLAG_IDS and seen[_FLAG_COLUMN[f.id]]]
         start_s = max(0.0, (beats[0] - windows.pre) / fs)
         end_s = min(n_samples / fs, (beats[-1] + windows.post) / fs)
         for flag in flags:
