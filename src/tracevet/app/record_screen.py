@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from rich.text import Text
 from textual import work
 from textual.app import ComposeResult
@@ -13,11 +15,21 @@ from textual.widgets import Footer, Static
 
 from tracevet.app import info_text, queue_view
 from tracevet.app.display import SEVERITY_STYLE, SEVERITY_SYMBOL, format_duration, inert_text, severity_text
-from tracevet.app.plots import CANVAS_OFFSET, format_clock, format_value, render_beat_overlay, render_trace_plots
+from tracevet.app.plots import (
+    CANVAS_OFFSET,
+    TracePlots,
+    format_clock,
+    format_value,
+    render_beat_overlay,
+    render_trace_plots,
+)
 from tracevet.app.record_decisions import DECISION_ACTIONS, DecisionActions
 from tracevet.errors import TracevetError
 from tracevet.recording import Recording
 from tracevet.workqueue import Claim, ClaimedByOther, RecordSummary, RunInfo
+
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
 
 DEFAULT_SPAN_S = 10.0
 MIN_SPAN_S = 0.5
@@ -36,6 +48,9 @@ READ_ONLY_NAME_CHARS = 12
 
 class RecordScreen(DecisionActions, Screen):
     """One record: look, compare runs, decide."""
+
+    if TYPE_CHECKING:
+        app: ReviewApp  # the app these screens run in, with its queue and reviewer
 
     HELP_TITLE = "record screen"
     BINDINGS = [
@@ -100,7 +115,7 @@ class RecordScreen(DecisionActions, Screen):
         self.loaded: dict[str, queue_view.RunData] = {}
         self.current_run_id: str | None = None
         self.previous_run_id: str | None = None
-        self.last_plots = None
+        self.last_plots: TracePlots | None = None
         self._panel_key: tuple | None = None
         self._redraw_pending = False
 
@@ -363,7 +378,7 @@ class RecordScreen(DecisionActions, Screen):
             widget.styles.height = height
             widget.update(self.plot_text(plot))
         self.query_one("#flag-strip", Static).update(self.flag_strip_text(plots.flag_strip))
-        units = inert_text(self.original.units or "units?", 8)
+        units = inert_text((self.original.units if self.original is not None else None) or "units?", 8)
         removed = plots.plots[2]
         line = Text(no_wrap=True, overflow="ellipsis")
         span = plots.end_s - plots.start_s
@@ -388,12 +403,13 @@ class RecordScreen(DecisionActions, Screen):
             return
         top = max(rows * 2 // 3, 3)
         heights = (top, rows + 1 - top)
-        overlay, difference = render_beat_overlay(*templates, width, heights, self.app.colour)
+        time_s, original_beat, cleaned_beat = templates
+        overlay, difference = render_beat_overlay(time_s, original_beat, cleaned_beat, width, heights, self.app.colour)
         for widget_id, plot, height in (("original", overlay, heights[0]), ("cleaned", difference, heights[1])):
             widget = self.query_one(f"#plot-{widget_id}", Static)
             widget.styles.height = height
             widget.update(self.plot_text(plot))
-        units = inert_text(self.original.units or "units?", 8)
+        units = inert_text((self.original.units if self.original is not None else None) or "units?", 8)
         line = Text(no_wrap=True, overflow="ellipsis")
         line.append(f"beat avg ({queue_view.beat_count(run.assessment, self.channel)} R) ", style="bold")
         line.append("orig ", style="dim")
@@ -435,6 +451,8 @@ class RecordScreen(DecisionActions, Screen):
     def update_panel(self) -> None:
         """Tabs and body of the lower panel."""
         run = self.shown_run
+        if run is None:
+            return
         previous = self.loaded.get(self.previous_run_id) if self.previous_run_id else None
         if self.panel == "compare" and previous is None:
             self.set_reactive(RecordScreen.panel, "flags")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import threading
 
 from rich.text import Text
@@ -16,6 +18,9 @@ from tracevet.app.display import inert_text
 from tracevet.cleaning import DEFAULT_SETTINGS, SETTING_CHOICES, SETTING_HELP, CleaningSettings
 from tracevet.errors import TracevetError
 
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
+
 
 class RerunCancelled(Exception):
     """Raised from the progress callback to stop a re-run the reviewer cancelled."""
@@ -26,6 +31,9 @@ class RerunScreen(ModalScreen[str | None]):
 
     Dismisses with the new run's id, or None.
     """
+
+    if TYPE_CHECKING:
+        app: ReviewApp  # the app these screens run in, with its queue and reviewer
 
     HELP_TITLE = "re-run form"
     BINDINGS = [
@@ -88,6 +96,7 @@ class RerunScreen(ModalScreen[str | None]):
         values = {}
         for name in self.initial:
             widget = self.query_one(f"#set-{name}")
+            assert isinstance(widget, (Input, Select))  # the form's fields, made in compose
             values[name] = widget.value
         return CleaningSettings.from_dict(values, source="re-run form")
 
