@@ -13,7 +13,7 @@ from textual.widgets import Footer, Static
 
 from tracevet.app import info_text, queue_view
 from tracevet.app.display import SEVERITY_STYLE, SEVERITY_SYMBOL, format_duration, inert_text, severity_text
-from tracevet.app.plots import CANVAS_OFFSET, format_clock, format_value, render_beat_overlay, render_trace_plots
+from tracevet.app.plots import CANVAS_OFFSET, format_value, format_window, render_beat_overlay, render_trace_plots
 from tracevet.app.record_decisions import DECISION_ACTIONS, DecisionActions
 from tracevet.errors import TracevetError
 from tracevet.recording import Recording
@@ -367,7 +367,7 @@ class RecordScreen(DecisionActions, Screen):
         removed = plots.plots[2]
         line = Text(no_wrap=True, overflow="ellipsis")
         span = plots.end_s - plots.start_s
-        line.append(f"{format_clock(plots.start_s, span)}-{format_clock(plots.end_s, span)}", style="bold")
+        line.append(format_window(plots.start_s, plots.end_s), style="bold")
         line.append(f" of {format_duration(traces.duration_s)}")
         line.append("  removed ", style="dim")
         line.append(f"{format_value(removed.y_low)}..{format_value(removed.y_high)} ", style="bold")
@@ -397,9 +397,9 @@ class RecordScreen(DecisionActions, Screen):
         line = Text(no_wrap=True, overflow="ellipsis")
         line.append(f"beat avg ({queue_view.beat_count(run.assessment, self.channel)} R) ", style="bold")
         line.append("orig ", style="dim")
-        line.append("━━", style="rgb(230,159,0)")
+        line.append("━━", style=self.app.palette.trace_style("original"))
         line.append(" clean ", style="dim")
-        line.append("━━" if self.app.colour else "••", style="rgb(86,180,233)")
+        line.append("━━" if self.app.colour else "••", style=self.app.palette.trace_style("cleaned"))
         line.append(f" {format_value(overlay.y_low)}..{format_value(overlay.y_high)} ")
         line.append_text(units)
         line.append("  o-c ", style="dim")
@@ -408,17 +408,13 @@ class RecordScreen(DecisionActions, Screen):
         self.query_one("#window-line", Static).update(line)
 
     def plot_text(self, plot) -> Text:
-        """plotext output as inert Text, with the plot's name written into its label column.
-
-        The ANSI codes come from plotext drawing our own numbers, never from
-        user data, so converting them to styles is safe.
-        """
-        lines = [Text.from_ansi(line, no_wrap=True) for line in plot.text.split("\n")]
+        """The plot's rows as one Text, with the plot's name written into its label column."""
+        lines = list(plot.lines)
         label = PLOT_LABELS.get(plot.name, plot.name)
         if len(lines) >= 3:
             row = len(lines) // 2 if plot.name != "removed" else 1
-            tail = lines[row][CANVAS_OFFSET:]
-            lines[row] = Text(label.rjust(CANVAS_OFFSET - 1)[: CANVAS_OFFSET - 1] + " ", style="bold") + tail
+            name = Text(label.rjust(CANVAS_OFFSET - 1)[: CANVAS_OFFSET - 1] + " ", style="bold")
+            lines[row] = name + lines[row][CANVAS_OFFSET:]
         return Text("\n", no_wrap=True).join(lines)
 
     def flag_strip_text(self, strip) -> Text:
