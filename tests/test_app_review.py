@@ -335,6 +335,13 @@ async def test_rerun_can_be_cancelled_and_leaves_nothing_behind(queue_dir):
         runs_before = [r.run_id for r in queue.runs(record_id)]
         await pilot.press("r")
         await wait_for(pilot, lambda: type(app.screen).__name__ == "RerunScreen")
+        assert not app.screen.query_one("#rerun-progress").display  # no "0%" before anything runs
+        await pilot.press("ctrl+r")  # the same settings as the shown run: refused, with a word
+        await wait_for(pilot, lambda: "change a setting first" in screen_text(app))
+        assert not app.screen.running and [r.run_id for r in queue.runs(record_id)] == runs_before
+        app.screen.query_one("#set-rule").value = "sure"
+        await pilot.pause(0.05)
+        assert "* rule" in screen_text(app)  # the changed field is marked
         await pilot.press("ctrl+r")
         await wait_for(pilot, lambda: app.screen.running)
         await pilot.press("escape")

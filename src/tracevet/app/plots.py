@@ -116,6 +116,22 @@ class Regions:
         return float(self.start_s[index]) if index < self.start_s.size else None
 
 
+    def next_index(self, after_s: float, backwards: bool = False) -> int | None:
+        """Index of the first region starting after ``after_s`` (or the last one starting before it)."""
+        if backwards:
+            index = int(np.searchsorted(self.start_s, after_s - 1e-6, side="left")) - 1
+            return index if index >= 0 else None
+        index = int(np.searchsorted(self.start_s, after_s + 1e-6, side="right"))
+        return index if index < self.start_s.size else None
+
+    def overlapping(self, start_s: float, end_s: float) -> int | None:
+        """Index of the region covering most of ``[start_s, end_s]``, or None when none overlaps it."""
+        overlap = np.minimum(self.end_s, end_s) - np.maximum(self.start_s, start_s)
+        if overlap.size == 0 or float(overlap.max()) <= 0:
+            return None
+        return int(np.argmax(overlap))
+
+
 NO_REGIONS = Regions(np.zeros(0), np.zeros(0), np.zeros(0, dtype=np.int8))
 
 
@@ -306,6 +322,7 @@ def render_trace_plots(
     heights: tuple[int, int, int],
     colour: bool = True,
     regions: Regions = NO_REGIONS,
+    only_original: bool = False,
 ) -> TracePlots:
     """Render original, cleaned and removed for one time window.
 
@@ -324,6 +341,8 @@ def render_trace_plots(
         False gives plain text (for ``NO_COLOR`` terminals).
     regions : Regions
         Flagged stretches, turned into a per-column flag strip.
+    only_original : bool
+        Draw the original alone over all the rows (a record without a cleaned run).
 
     Returns
     -------
@@ -352,6 +371,13 @@ def render_trace_plots(
     tick_pos = nice_ticks(x_low, x_high, max(1, columns // 12))
     tick_labels = [format_clock(t, x_high - x_low, x_high) for t in tick_pos]
     plots = []
+    if only_original:  # no cleaned run yet: the original alone, over the whole height
+        env = envs["original"]
+        y_low, y_high = _y_range(float(env.bin_min.min()), float(env.bin_max.max()))
+        series = [(env.times(fs), env.values, _trace_style("original", colour), False)]
+        plot = _render_plot("original", series, x_low, x_high, y_low, y_high, columns, sum(heights),
+                            (tick_pos, tick_labels), colour)
+        return TracePlots(x_low, x_high, (plot,), 0.0, flag_strip(regions, x_low, x_high, columns), columns)
     for index, name in enumerate(("original", "cleaned", "removed")):
         env = envs[name]
         y_low, y_high = removed if name == "removed" else shared
