@@ -49,6 +49,7 @@ class ReviewApp(App):
         self.palette = palette_for(self.colour)
         use_palette(self.palette)
         self.held_claim: str | None = None
+        self.last_decided: str | None = None  # the worklist puts its cursor after it
 
     def on_mount(self) -> None:
         """Show the worklist and start refreshing held claims."""

@@ -9,7 +9,7 @@ from __future__ import annotations
 from rich.text import Text
 
 from tracevet.app import queue_view
-from tracevet.app.plots import format_clock, format_window
+from tracevet.app.plots import format_stretch
 from tracevet.assessment import Assessment, Flag
 from tracevet.assessment.metric_words import FLAG_METRIC, METRIC_ROWS, channel_metrics, format_metric
 from tracevet.app.display import (
@@ -67,9 +67,8 @@ def stretches_text(flag: Flag, limit: int = 2, duration_s: float | None = None) 
         return "where: n/a"
     if duration_s and len(where) == 1 and where[0][0] <= 0.05 and where[0][1] >= duration_s - 0.05:
         return "whole record"
-    longest = max(float(end) for _, end in where)
-    shown = [format_window(float(a), float(b)) if float(b) - float(a) >= 0.05 else format_clock(float(a), None, longest)
-             for a, b in where[:limit]]
+    longest = max([float(end) for _, end in where] + [duration_s or 0.0])
+    shown = [format_stretch(float(a), float(b), longest) for a, b in where[:limit]]
     more = len(where) - len(shown) + int(flag.where_more or 0)
     return ", ".join(shown) + (f" +{more}" if more else "")
 

@@ -196,6 +196,11 @@ def format_clock(seconds: float, span_s: float | None = None, longest_s: float |
     return f"{sign}{h}:{m:02d}:{tail}" if h or long_view else f"{sign}{m}:{tail}"
 
 
+def format_stretch(start_s: float, end_s: float, longest_s: float) -> str:
+    """A flagged stretch in tenths of a second, in the form the record's length calls for (``14.0s-15.0s``)."""
+    return f"{format_clock(start_s, 10.0, longest_s)}-{format_clock(end_s, 10.0, longest_s)}"
+
+
 def format_window(start_s: float, end_s: float) -> str:
     """``start-end`` of a window, both in one form (``55.0s-1:05.0`` never happens)."""
     span = end_s - start_s

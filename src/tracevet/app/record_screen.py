@@ -16,6 +16,7 @@ from tracevet.app.display import SEVERITY_STYLE, SEVERITY_SYMBOL, format_duratio
 from tracevet.app.plots import (
     CANVAS_OFFSET,
     TracePyramids,
+    format_stretch,
     format_value,
     format_window,
     render_beat_overlay,
@@ -83,6 +84,7 @@ class RecordScreen(DecisionActions, Screen):
         Binding("a", "decide('accept')", "Accept"),
         Binding("x", "decide('reject')", "Reject"),
         Binding("s", "decide('rerun')", "Send back", show=False),
+        Binding("S", "send_back_with_settings", "Send back with settings", show=False),
         Binding("r", "rerun", "Re-run"),
         Binding("escape,q", "back", "Back", key_display="esc"),
     ]
@@ -106,6 +108,7 @@ class RecordScreen(DecisionActions, Screen):
         "decide('accept')": "accept the shown run (note; required when a flag is FAIL)",
         "decide('reject')": "reject the record (a note is required)",
         "decide('rerun')": "send back for re-run (note optional)",
+        "send_back_with_settings": "send back with settings for the re-run (chosen in the form, then a note)",
         "rerun": "re-run now with other settings; result shown beside the previous run",
         "back": "back to the worklist (releases the record)",
     }
@@ -187,7 +190,7 @@ class RecordScreen(DecisionActions, Screen):
         """Decision keys are shown disabled (and do nothing) while read-only or without a run."""
         if action in DECISION_ACTIONS and self.read_only:
             return None
-        if action == "decide" and self.shown_run is None:
+        if action in ("decide", "send_back_with_settings") and self.shown_run is None:
             return None
         return True
 
@@ -466,7 +469,7 @@ class RecordScreen(DecisionActions, Screen):
             templates = found[:3] if found is not None else None
             count = found[3] if found is not None else 0
         if templates is None:
-            where = "in this channel" if scope is None else f"in {format_window(*scope)}"
+            where = "in this channel" if scope is None else f"in {format_stretch(*scope, self.original.duration_s)}"
             self.query_one("#plot-original", Static).update(Text(f"no measured beats {where}", style="dim"))
             self.query_one("#plot-cleaned", Static).update("")
             self._traces_key = None
@@ -485,7 +488,7 @@ class RecordScreen(DecisionActions, Screen):
         self._traces_key = None
         units = inert_text(self.original.units or "units?", 8)
         line = Text(no_wrap=True, overflow="ellipsis")
-        what = "beat avg" if scope is None else f"stretch {format_window(*scope)} avg"
+        what = "beat avg" if scope is None else f"stretch {format_stretch(*scope, self.original.duration_s)} avg"
         line.append(f"{what} ({count} beats) ", style="bold")
         line.append("orig ", style="dim")
         line.append("━━", style=self.app.palette.trace_style("original"))
