@@ -9,6 +9,7 @@ from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
 from textual.reactive import var
 from textual.screen import Screen
+from textual.widget import Widget
 from textual.widgets import Footer, Static
 
 from tracevet.app import info_text, queue_view
@@ -42,6 +43,40 @@ PLOT_LABELS = {
 READ_ONLY_NAME_CHARS = 12
 STRETCH_MIN_SPAN_S = 5.0
 STRETCH_MAX_SPAN_S = 20.0
+
+
+class TextBlock(Widget):
+    """A fixed-size block of text whose new content is painted without a new layout.
+
+    ``Static.update`` lays the whole screen out again; the plots, the flag
+    strip and the one-line headers change on every key but never change
+    size by themselves, so they only repaint (part of the redraw speed).
+    """
+
+    DEFAULT_CSS = "TextBlock { height: 1; width: 100%; }"
+
+    def __init__(self, id: str, classes: str | None = None) -> None:  # noqa: A002 - Textual's name
+        super().__init__(id=id, classes=classes)
+        self._text = Text("")
+
+    def render(self) -> Text:
+        """The current text."""
+        return self._text
+
+    def update(self, text: Text | str = "") -> None:
+        """Show ``text`` (repaint only)."""
+        self._text = text if isinstance(text, Text) else Text(str(text))
+        self.refresh()
+
+    def set_height(self, rows: int) -> None:
+        """Change the height (this one needs a layout), only when it differs."""
+        if self.styles.height is None or self.styles.height.value != rows:
+            self.styles.height = rows
+
+    def show(self, shown: bool) -> None:
+        """Show or hide, only when that changes."""
+        if self.display != shown:
+            self.display = shown
 
 
 def stretch_lead_s(span_s: float) -> float:
@@ -197,13 +232,13 @@ class RecordScreen(DecisionActions, Screen):
     # -- layout -------------------------------------------------------
     def compose(self) -> ComposeResult:
         """Title line, last decision, window line, the plot stack, the panel, the key footer."""
-        yield Static(id="record-title")
-        yield Static(id="decision-line")
-        yield Static(id="window-line")
+        yield TextBlock(id="record-title")
+        yield TextBlock(id="decision-line")
+        yield TextBlock(id="window-line")
         with Vertical(id="plots"):
             for name in PLOT_NAMES:
-                yield Static(id=f"plot-{name}", classes="plot")
-            yield Static(id="flag-strip")
+                yield TextBlock(id=f"plot-{name}", classes="plot")
+            yield TextBlock(id="flag-strip")
         yield Static(id="panel-tabs")
         with VerticalScroll(id="panel"):
             yield Static(id="panel-body")
@@ -211,7 +246,8 @@ class RecordScreen(DecisionActions, Screen):
 
     def on_mount(self) -> None:
         """Claim the record (or open it read-only) and load it in the background."""
-        self.query_one("#record-title", Static).update(Text.assemble("loading record ", inert_text(self.record_id, 40)))
+        loading = Text.assemble("loading record ", inert_text(self.record_id, 40))
+        self.query_one("#record-title", TextBlock).update(loading)
         try:
             self.app.claim(self.record_id)
         except ClaimedByOther as exc:
@@ -353,19 +389,19 @@ class RecordScreen(DecisionActions, Screen):
         plots = render_trace_plots(traces, self.start_s, self.span_s, width, (rows - 2, 1, 1), self.app.colour,
                                    only_original=True)
         self.last_plots = plots
-        widget = self.query_one("#plot-original", Static)
-        widget.display = True
-        widget.styles.height = rows
+        widget = self.query_one("#plot-original", TextBlock)
+        widget.show(True)
+        widget.set_height(rows)
         widget.update(self.plot_text(plots.plots[0]))
         for name in ("cleaned", "removed"):
-            self.query_one(f"#plot-{name}", Static).display = False
-        self.query_one("#flag-strip", Static).update("")
+            self.query_one(f"#plot-{name}", TextBlock).show(False)
+        self.query_one("#flag-strip", TextBlock).update("")
         line = Text(no_wrap=True, overflow="ellipsis")
         line.append(format_window(plots.start_s, plots.end_s), style="bold")
         line.append(f" of {format_duration(traces.duration_s)}  ")
         line.append("no cleaned run yet: the original is shown; r cleans it now ('tracevet clean' does the queue)",
                     style="bold")
-        self.query_one("#window-line", Static).update(line)
+        self.query_one("#window-line", TextBlock).update(line)
         self.query_one("#panel-tabs", Static).update(Text("no run: nothing assessed yet", style="dim"))
         self.query_one("#panel-body", Static).update(
             info_text.record_line(self.record_id, self.summary.source_name if self.summary else "", self.original)
@@ -404,14 +440,14 @@ class RecordScreen(DecisionActions, Screen):
             parts.append((5, inert_text(info_text.run_label(run.info, self.runs, self.current_run_id), 40)))
         if rec is not None:
             parts.append((6, Text.assemble(inert_text(rec.kind, 6), f" {rec.fs:g} Hz")))
-        widget = self.query_one("#record-title", Static)
+        widget = self.query_one("#record-title", TextBlock)
         width = (widget.content_size.width or self.size.width - 2) if self.is_mounted else 78
         widget.update(info_text.fit_by_priority(parts, max(width, 20)))
 
     def update_decision_line(self) -> None:
         """The record's last decision (who, what, when, note), or that there is none."""
         last = self.summary.last if self.summary is not None else None
-        self.query_one("#decision-line", Static).update(queue_view.decision_text(last))
+        self.query_one("#decision-line", TextBlock).update(queue_view.decision_text(last))
 
     def plot_geometry(self) -> tuple[int, int]:
         """Width and total rows available to the plot stack (the flag strip takes one row)."""
@@ -435,11 +471,11 @@ class RecordScreen(DecisionActions, Screen):
         self._traces_key = key
         self.last_plots = plots
         for plot, height in zip(plots.plots, heights):
-            widget = self.query_one(f"#plot-{plot.name}", Static)
-            widget.display = True
-            widget.styles.height = height
+            widget = self.query_one(f"#plot-{plot.name}", TextBlock)
+            widget.show(True)
+            widget.set_height(height)
             widget.update(self.plot_text(plot))
-        self.query_one("#flag-strip", Static).update(self.flag_strip_text(plots.flag_strip))
+        self.query_one("#flag-strip", TextBlock).update(self.flag_strip_text(plots.flag_strip))
         units = inert_text(self.original.units or "units?", 8)
         removed = plots.plots[2]
         line = Text(no_wrap=True, overflow="ellipsis")
@@ -450,15 +486,15 @@ class RecordScreen(DecisionActions, Screen):
         line.append(f"{format_value(removed.y_low)}..{format_value(removed.y_high)} ", style="bold")
         line.append_text(units)
         line.append(f" = {plots.removed_ratio * 100:.0f}% of original p-p", style="bold")
-        self.query_one("#window-line", Static).update(line)
+        self.query_one("#window-line", TextBlock).update(line)
 
     def draw_beats(self, run) -> None:
         """Averaged beat (whole record, or the flagged stretch chosen with B) of original and cleaned
         overlaid, their difference, and the J point and ST reading point marked."""
         width, rows = self.plot_geometry()
         for name in PLOT_NAMES:
-            self.query_one(f"#plot-{name}", Static).display = name != "removed"
-        self.query_one("#flag-strip", Static).update("")
+            self.query_one(f"#plot-{name}", TextBlock).show(name != "removed")
+        self.query_one("#flag-strip", TextBlock).update("")
         scope = self.beat_scope
         if scope is None:
             found = queue_view.beat_templates(run.assessment, self.channel)
@@ -470,8 +506,8 @@ class RecordScreen(DecisionActions, Screen):
             count = found[3] if found is not None else 0
         if templates is None:
             where = "in this channel" if scope is None else f"in {format_stretch(*scope, self.original.duration_s)}"
-            self.query_one("#plot-original", Static).update(Text(f"no measured beats {where}", style="dim"))
-            self.query_one("#plot-cleaned", Static).update("")
+            self.query_one("#plot-original", TextBlock).update(Text(f"no measured beats {where}", style="dim"))
+            self.query_one("#plot-cleaned", TextBlock).update("")
             self._traces_key = None
             return
         top = max(rows * 2 // 3, 3)
@@ -482,8 +518,8 @@ class RecordScreen(DecisionActions, Screen):
             *templates, width, heights, self.app.colour, marks or (), ("J", "ST") if marks else ()
         )
         for widget_id, plot, height in (("original", overlay, heights[0]), ("cleaned", difference, heights[1])):
-            widget = self.query_one(f"#plot-{widget_id}", Static)
-            widget.styles.height = height
+            widget = self.query_one(f"#plot-{widget_id}", TextBlock)
+            widget.set_height(height)
             widget.update(self.plot_text(plot))
         self._traces_key = None
         units = inert_text(self.original.units or "units?", 8)
@@ -501,7 +537,7 @@ class RecordScreen(DecisionActions, Screen):
         line.append_text(units)
         if marks:
             line.append(f"  J {marks[0] * 1000:+.0f} ms, ST J+{(marks[1] - marks[0]) * 1000:.0f}", style="dim")
-        self.query_one("#window-line", Static).update(line)
+        self.query_one("#window-line", TextBlock).update(line)
 
     def plot_text(self, plot) -> Text:
         """The plot's rows as one Text, with the plot's name written into its label column."""
