@@ -304,7 +304,7 @@ AGGRESSIVE = {
     "deep-hard": lambda n: CleaningSettings(transform="dwt", wavelet="db4", level=_deepest(n, "db4"), rule="universal",
                                             threshold_mode="hard", noise_estimate="per_level"),
     # Baseline removal far above the 0.67 Hz bound of AHA/ACCF/HRS 2007 (from memory).
-    "heavy-baseline": lambda n: CleaningSettings(baseline_cutoff_hz=3.0),
+    "heavy-baseline": lambda n: CleaningSettings(baseline="butterworth", baseline_cutoff_hz=3.0),
     # Haar, universal soft threshold with per-level noise estimates, deepest level.
     "deep-soft": lambda n: CleaningSettings(
         transform="dwt", wavelet="haar", level=_deepest(n, "haar"), rule="universal", threshold_mode="soft",

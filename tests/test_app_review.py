@@ -51,7 +51,7 @@ def queue_template(tmp_path_factory) -> Path:
         files.append(path)
     # dive-c is cleaned with a 5 Hz baseline high-pass, far above the usual 0.05-0.67 Hz (common
     # practice for ST-segment fidelity), so it carries fail flags like a damaging run would.
-    harsh = CleaningSettings.from_dict(dict(DEFAULT_SETTINGS.to_dict(), baseline_cutoff_hz=5.0))
+    harsh = CleaningSettings.from_dict(dict(DEFAULT_SETTINGS.to_dict(), baseline="butterworth", baseline_cutoff_hz=5.0))
     for record_id in queue.add_files(files, added_by="setup"):
         queue.add_run(record_id, harsh if record_id == "dive-c" else DEFAULT_SETTINGS)
     assert queue.record("dive-c").worst_severity == "fail"

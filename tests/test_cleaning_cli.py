@@ -93,7 +93,7 @@ BAD_INPUTS = [
         "baseline cutoff above Nyquist",
         "b.npy",
         np.zeros(4000),
-        ["--fs", "8", "--set", "baseline_cutoff_hz=5"],
+        ["--fs", "8", "--set", "baseline=butterworth", "--set", "baseline_cutoff_hz=5"],
         "half the sampling rate",
     ),
 ]

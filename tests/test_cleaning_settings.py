@@ -54,7 +54,7 @@ def test_settings_error_is_an_input_error_listing_sorted_choices():
         ({"level": True}, "level must be"),
         ({"threshold_mode": "firm"}, "unknown threshold_mode"),
         ({"noise_estimate": "mean"}, "unknown noise_estimate"),
-        ({"baseline": "median"}, "unknown baseline"),
+        ({"baseline": "spline"}, "unknown baseline"),
         ({"baseline_cutoff_hz": 0.0}, "baseline_cutoff_hz"),
         ({"baseline_cutoff_hz": float("nan")}, "baseline_cutoff_hz"),
         ({"mains": "55"}, "unknown mains"),

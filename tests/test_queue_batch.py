@@ -8,7 +8,7 @@ import socket
 import numpy as np
 import pytest
 
-from tracevet.cleaning import DEFAULT_SETTINGS, clean
+from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings, clean
 from tracevet.errors import InputError
 from tracevet.recording import Recording, read_recording, write_recording
 from tracevet.synthetic import muscle_noise, synthetic_ecg
@@ -39,8 +39,12 @@ def test_clean_cleans_and_assesses_every_waiting_record(queue_of_four):
     assert seen[0] == (0, 4) and seen[-1] == (4, 4)
     assert {r.state for r in queue.records()} == {"to-review"}
     run = queue.runs(ids[0])[0]
-    assert run.origin == "tracevet" and run.settings == DEFAULT_SETTINGS.to_dict()
-    assert run.settings_digest == DEFAULT_SETTINGS.digest()
+    # The run records the settings applied: mains auto resolved (no 50/60 Hz line in these records).
+    applied = DEFAULT_SETTINGS.to_dict()
+    if applied["mains"] == "auto":
+        applied["mains"] = "off"
+    assert run.origin == "tracevet" and run.settings == applied
+    assert run.settings_digest == CleaningSettings.from_dict(applied).digest()
     cleaned, assessment = queue.load_run(ids[0])
     assert cleaned.n_samples == 2000 and hasattr(assessment, "flags")
     assert clean_waiting(queue) == []

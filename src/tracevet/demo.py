@@ -77,7 +77,7 @@ SCENARIO: tuple[DemoRecord, ...] = (
     DemoRecord(
         "dive06-diver-gunn", "baseline filter cutoff typed as 5 Hz instead of 0.5 Hz", 60, 500,
         heart_rate_bpm=70,
-        overrides=("baseline_cutoff_hz=5.0",),
+        overrides=("baseline=butterworth", "baseline_cutoff_hz=5.0"),
         intended_flagged=True, seed=9,
     ),
     DemoRecord(

@@ -88,8 +88,9 @@ def canvas_text(codes: np.ndarray, owner: np.ndarray, styles: list[Style | None]
     for row_codes, row_owner in zip(codes, owner):
         chars = "".join(map(chr, row_codes.tolist()))
         text = Text(chars.replace(blank, " "), no_wrap=True)
-        if len(styles) == 1 and styles[0] is not None:
-            text.stylize(styles[0])
+        only = styles[0] if len(styles) == 1 else None
+        if only is not None:
+            text.stylize(only)
         elif any(s is not None for s in styles):
             # one span per run of cells drawn by the same series; blank cells join the run before them
             filled = np.maximum.accumulate(np.where(row_owner >= 0, np.arange(row_owner.size), 0))
@@ -99,8 +100,9 @@ def canvas_text(codes: np.ndarray, owner: np.ndarray, styles: list[Style | None]
             ends = np.concatenate((change, [row_owner.size]))
             for start, end in zip(starts.tolist(), ends.tolist()):
                 index = int(row_owner[start])
-                if index >= 0 and styles[index] is not None:
-                    text.stylize(styles[index], start, end)
+                style = styles[index] if index >= 0 else None
+                if style is not None:
+                    text.stylize(style, start, end)
         lines.append(text)
     return lines
 

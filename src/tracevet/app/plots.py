@@ -487,7 +487,7 @@ def render_beat_overlay(
             positions = [p for p, k in zip(positions, keep) if k] + [position]
             labels = [label for label, k in zip(labels, keep) if k] + [name]
         order = np.argsort(positions)
-        ticks = ([positions[i] for i in order], [labels[i] for i in order])
+        ticks = (np.array([positions[i] for i in order], dtype=np.float64), [labels[i] for i in order])
     overlay_series = [
         (*thin(orig), _trace_style("original", colour), False),
         (*thin(clean), _trace_style("cleaned", colour), not colour),

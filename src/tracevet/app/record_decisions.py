@@ -9,12 +9,18 @@ never imports the record screen: the next record is opened through
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING, Any
+
 from rich.text import Text
 
 from tracevet.app import info_text, queue_view
 from tracevet.app.display import inert_text
 from tracevet.errors import TracevetError
 from tracevet.workqueue import DecisionOverride, LastDecision
+
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
+    from tracevet.workqueue import RecordSummary, RunInfo
 
 # Actions that change the queue; the record screen shows their keys disabled while read-only.
 DECISION_ACTIONS = frozenset({"decide", "rerun", "send_back_with_settings"})
@@ -38,6 +44,30 @@ def override_question(record_id: str, previous: LastDecision, decision: str) -> 
 
 class DecisionActions:
     """Accept, reject, send back, re-run: the actions of the record screen that change the queue."""
+
+    if TYPE_CHECKING:  # state and methods of the record screen this class is mixed into
+        app: ReviewApp
+        notify: Any
+        record_id: str
+        summary: RecordSummary | None
+        runs: list[RunInfo]
+        current_run_id: str | None
+        previous_run_id: str | None
+        shown_run_id: str | None
+        read_only: bool
+        panel: str
+
+        @property
+        def holder_text(self) -> str: ...
+
+        @property
+        def shown_run(self) -> queue_view.RunData | None: ...
+
+        def show_run(self, run_id: str) -> None: ...
+
+        def update_title(self) -> None: ...
+
+        def update_decision_line(self) -> None: ...
 
     def action_decide(self, decision: str) -> None:
         """Ask for a note, then write ``decision`` for the shown run to the log.
@@ -97,6 +127,8 @@ class DecisionActions:
         from tracevet.app.note_screen import NoteScreen
 
         run = self.shown_run
+        if run is None:
+            return
         fail = queue_view.has_fail(run.assessment)
         if decision == "reject":
             reason = "a reject needs a note saying why"
@@ -168,7 +200,7 @@ class DecisionActions:
         run = self.shown_run
         settings = dict(run.info.settings or {}) if run is not None else {}
 
-        def finished(new_run_id: str | None) -> None:
+        def finished(new_run_id: object) -> None:
             if new_run_id:
                 self.previous_run_id = self.shown_run_id
                 self.panel = "compare" if self.previous_run_id else "flags"

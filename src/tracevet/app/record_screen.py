@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from rich.text import Text
 from textual import work
 from textual.app import ComposeResult
@@ -16,6 +18,7 @@ from tracevet.app import info_text, queue_view
 from tracevet.app.display import SEVERITY_STYLE, SEVERITY_SYMBOL, format_duration, inert_text, severity_text
 from tracevet.app.plots import (
     CANVAS_OFFSET,
+    TracePlots,
     TracePyramids,
     format_stretch,
     format_value,
@@ -27,6 +30,9 @@ from tracevet.app.record_decisions import DECISION_ACTIONS, DecisionActions
 from tracevet.errors import TracevetError
 from tracevet.recording import Recording
 from tracevet.workqueue import Claim, ClaimedByOther, RecordSummary, RunInfo
+
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
 
 DEFAULT_SPAN_S = 10.0
 MIN_SPAN_S = 0.5
@@ -97,6 +103,9 @@ def stretch_window(start_s: float, end_s: float, duration_s: float) -> tuple[flo
 
 class RecordScreen(DecisionActions, Screen):
     """One record: look, compare runs, decide."""
+
+    if TYPE_CHECKING:
+        app: ReviewApp  # the app these screens run in, with its queue and reviewer
 
     HELP_TITLE = "record screen"
     BINDINGS = [
@@ -170,7 +179,7 @@ class RecordScreen(DecisionActions, Screen):
         self.loaded: dict[str, queue_view.RunData] = {}
         self.current_run_id: str | None = None
         self.previous_run_id: str | None = None
-        self.last_plots = None
+        self.last_plots: TracePlots | None = None
         self._panel_key: tuple | None = None
         self._redraw_pending = False
         self._original_pyramids: dict[int, TracePyramids] = {}
@@ -381,9 +390,12 @@ class RecordScreen(DecisionActions, Screen):
 
     def draw_original_only(self) -> None:
         """A record without a cleaned run: its original, with a hint on how to get a run."""
+        rec = self.original
+        if rec is None:
+            return
         if self.channel not in self._original_pyramids:
-            samples = self.original.channel(self.channel)
-            self._original_pyramids[self.channel] = TracePyramids.from_arrays(samples, samples, self.original.fs)
+            samples = rec.channel(self.channel)
+            self._original_pyramids[self.channel] = TracePyramids.from_arrays(samples, samples, rec.fs)
         traces = self._original_pyramids[self.channel]
         width, rows = self.plot_geometry()
         plots = render_trace_plots(traces, self.start_s, self.span_s, width, (rows - 2, 1, 1), self.app.colour,
@@ -476,7 +488,7 @@ class RecordScreen(DecisionActions, Screen):
             widget.set_height(height)
             widget.update(self.plot_text(plot))
         self.query_one("#flag-strip", TextBlock).update(self.flag_strip_text(plots.flag_strip))
-        units = inert_text(self.original.units or "units?", 8)
+        units = inert_text((self.original.units if self.original is not None else None) or "units?", 8)
         removed = plots.plots[2]
         line = Text(no_wrap=True, overflow="ellipsis")
         span = plots.end_s - plots.start_s
@@ -491,6 +503,9 @@ class RecordScreen(DecisionActions, Screen):
     def draw_beats(self, run) -> None:
         """Averaged beat (whole record, or the flagged stretch chosen with B) of original and cleaned
         overlaid, their difference, and the J point and ST reading point marked."""
+        rec = self.original
+        if rec is None:
+            return
         width, rows = self.plot_geometry()
         for name in PLOT_NAMES:
             self.query_one(f"#plot-{name}", TextBlock).show(name != "removed")
@@ -501,30 +516,32 @@ class RecordScreen(DecisionActions, Screen):
             count = queue_view.beat_count(run.assessment, self.channel)
             templates = found
         else:
-            found = queue_view.stretch_templates(run, self.original, self.channel, *scope)
+            found = queue_view.stretch_templates(run, rec, self.channel, *scope)
             templates = found[:3] if found is not None else None
             count = found[3] if found is not None else 0
         if templates is None:
-            where = "in this channel" if scope is None else f"in {format_stretch(*scope, self.original.duration_s)}"
+            where = "in this channel" if scope is None else f"in {format_stretch(*scope, rec.duration_s)}"
             self.query_one("#plot-original", TextBlock).update(Text(f"no measured beats {where}", style="dim"))
             self.query_one("#plot-cleaned", TextBlock).update("")
             self._traces_key = None
             return
         top = max(rows * 2 // 3, 3)
         heights = (top, rows + 1 - top)
-        rr_s = queue_view.median_rr_s(run.assessment, self.channel, self.original.fs)
-        marks = queue_view.fiducial_marks(templates[0], templates[1], rr_s, self.original.fs)
+        time_s, original_beat, cleaned_beat = templates
+        rr_s = queue_view.median_rr_s(run.assessment, self.channel, rec.fs)
+        marks = queue_view.fiducial_marks(time_s, original_beat, rr_s, rec.fs)
         overlay, difference = render_beat_overlay(
-            *templates, width, heights, self.app.colour, marks or (), ("J", "ST") if marks else ()
+            time_s, original_beat, cleaned_beat, width, heights, self.app.colour,
+            marks or (), ("J", "ST") if marks else (),
         )
         for widget_id, plot, height in (("original", overlay, heights[0]), ("cleaned", difference, heights[1])):
             widget = self.query_one(f"#plot-{widget_id}", TextBlock)
             widget.set_height(height)
             widget.update(self.plot_text(plot))
         self._traces_key = None
-        units = inert_text(self.original.units or "units?", 8)
+        units = inert_text(rec.units or "units?", 8)
         line = Text(no_wrap=True, overflow="ellipsis")
-        what = "beat avg" if scope is None else f"stretch {format_stretch(*scope, self.original.duration_s)} avg"
+        what = "beat avg" if scope is None else f"stretch {format_stretch(*scope, rec.duration_s)} avg"
         line.append(f"{what} ({count} beats) ", style="bold")
         line.append("orig ", style="dim")
         line.append("━━", style=self.app.palette.trace_style("original"))
@@ -563,6 +580,9 @@ class RecordScreen(DecisionActions, Screen):
     def update_panel(self) -> None:
         """Tabs and body of the lower panel (rebuilt only when what it shows changed)."""
         run = self.shown_run
+        rec = self.original
+        if run is None or rec is None:
+            return
         previous = self.loaded.get(self.previous_run_id) if self.previous_run_id else None
         if self.panel == "compare" and previous is None:
             self.set_reactive(RecordScreen.panel, "flags")
@@ -571,7 +591,6 @@ class RecordScreen(DecisionActions, Screen):
             return
         self._panel_content_key = content_key
         self.query_one("#panel-tabs", Static).update(info_text.panel_tabs(self.panel, previous is not None))
-        rec = self.original
         name = queue_view.channel_name(run.assessment, self.channel) or rec.channels[self.channel]
         if self.panel == "flags":
             body = info_text.flags_panel(run.assessment, name, self.details, rec.duration_s)
@@ -585,7 +604,8 @@ class RecordScreen(DecisionActions, Screen):
         else:
             # always the older run on the left, whichever of the two is shown (v does not flip it)
             order = [str(r.run_id) for r in self.runs]
-            older, newer = sorted((previous, run), key=lambda r: order.index(r.run_id) if r.run_id in order else 0)
+            pair = [r for r in (previous, run) if r is not None]
+            older, newer = sorted(pair, key=lambda r: order.index(r.run_id) if r.run_id in order else 0)
             body = info_text.compare_panel(older, newer, shown_id=run.run_id)
         self.query_one("#panel-body", Static).update(body)
         shown_key = (self.panel, self.shown_run_id, self.previous_run_id)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import threading
 
 from rich.text import Text
@@ -16,6 +18,9 @@ from tracevet.app.display import inert_text
 from tracevet.cleaning import DEFAULT_SETTINGS, SETTING_CHOICES, SETTING_HELP, CleaningSettings
 from tracevet.errors import TracevetError
 
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
+
 
 class RerunCancelled(Exception):
     """Raised from the progress callback to stop a re-run the reviewer cancelled."""
@@ -28,6 +33,9 @@ class RerunScreen(ModalScreen[object]):
     run: ctrl+r dismisses with the chosen :class:`CleaningSettings`, to be
     attached to a send-back decision.
     """
+
+    if TYPE_CHECKING:
+        app: ReviewApp  # the app these screens run in, with its queue and reviewer
 
     HELP_TITLE = "re-run form"
     BINDINGS = [
@@ -91,9 +99,15 @@ class RerunScreen(ModalScreen[object]):
         self.query_one(ProgressBar).display = False
         self.query_one("#rerun-grid").children[1].focus()
 
+    def field_value(self, name: str) -> object:
+        """The value in the form's field of setting ``name``."""
+        widget = self.query_one(f"#set-{name}")
+        assert isinstance(widget, (Input, Select))  # the form's fields, made in compose
+        return widget.value
+
     def changed_fields(self) -> list[str]:
         """Names of the settings whose field differs from the value the form started with."""
-        return [name for name, value in self.initial.items() if str(self.query_one(f"#set-{name}").value) != str(value)]
+        return [name for name, value in self.initial.items() if str(self.field_value(name)) != str(value)]
 
     def mark_changed(self) -> None:
         """Mark changed fields with ``*`` (and bold), so the reviewer sees what the new run changes."""
@@ -122,6 +136,7 @@ class RerunScreen(ModalScreen[object]):
         values = {}
         for name in self.initial:
             widget = self.query_one(f"#set-{name}")
+            assert isinstance(widget, (Input, Select))  # the form's fields, made in compose
             values[name] = widget.value
         return CleaningSettings.from_dict(values, source="re-run form")
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.screen import Screen
@@ -11,6 +13,9 @@ from rich.text import Text
 from tracevet.app import queue_view
 from tracevet.app.display import format_duration, inert_text, severity_text
 from tracevet.workqueue import REVIEW_STATES, RecordSummary
+
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
 
 SORTS = ("flagged first", "id", "duration", "state")
 COLUMNS = (
@@ -43,6 +48,9 @@ AUTO_REFRESH_SECONDS = 15.0
 
 class WorklistScreen(Screen):
     """Table of records: state, duration, channels, worst flag, holder, last decision."""
+
+    if TYPE_CHECKING:
+        app: ReviewApp  # the app these screens run in, with its queue and reviewer
 
     HELP_TITLE = "worklist"
     KEY_HELP = {
@@ -83,14 +91,14 @@ class WorklistScreen(Screen):
     def on_mount(self) -> None:
         """Fill the table (columns sized to the width) and refresh it every few seconds."""
         self.action_refresh()
-        self.set_interval(AUTO_REFRESH_SECONDS, self.auto_refresh)
+        self.set_interval(AUTO_REFRESH_SECONDS, self.poll_queue)
 
     def on_resize(self) -> None:
         """New width: columns take it."""
         if self._widths != column_widths(self.size.width):
             self.action_refresh()
 
-    def auto_refresh(self) -> None:
+    def poll_queue(self) -> None:
         """Pick up other reviewers' claims and decisions while the worklist is on screen."""
         if self.is_current:
             self.action_refresh()
@@ -209,7 +217,8 @@ class WorklistScreen(Screen):
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
         """Enter on a row opens it."""
-        self.open_record(event.row_key.value)
+        if event.row_key.value is not None:
+            self.open_record(event.row_key.value)
 
     def action_open_selected(self) -> None:
         """Open the record under the cursor."""

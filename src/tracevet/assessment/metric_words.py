@@ -69,8 +69,9 @@ def channel_metrics(metrics: dict, channel: str, several_channels: bool) -> dict
     else:
         chosen = {key: value for key, value in metrics.items() if "@" not in str(key)}
     counts = [chosen.get(k) for k in ("beat_count", "dominant_beat_count", "other_beat_count")]
-    if all(isinstance(c, (int, float)) and math.isfinite(float(c)) for c in counts):
-        chosen["unmeasured_beat_count"] = max(0, int(round(counts[0] - counts[1] - counts[2])))
+    numbers = [float(c) for c in counts if isinstance(c, (int, float)) and math.isfinite(float(c))]
+    if len(numbers) == 3:
+        chosen["unmeasured_beat_count"] = max(0, int(round(numbers[0] - numbers[1] - numbers[2])))
     return chosen
 
 

@@ -4,11 +4,13 @@ Public API::
 
     from tracevet.cleaning import (CleaningSettings, DEFAULT_SETTINGS, SETTING_CHOICES,
                                    SETTING_HELP, load_profile, apply_overrides,
-                                   clean, resolve_level)
+                                   clean, clean_with_report, resolve_level, PROFILES)
 """
 
 from tracevet.cleaning.settings import (
     DEFAULT_SETTINGS,
+    PROFILE_HELP,
+    PROFILES,
     SETTING_CHOICES,
     SETTING_HELP,
     SETTING_NAMES,
@@ -21,11 +23,11 @@ from tracevet.cleaning.levels import auto_level, band_hz, resolve_level
 # The engine pulls in SciPy's signal module (about a second to import); it is
 # imported on first use (PEP 562) so that commands that never clean, such as
 # `tracevet status`, start fast.
-_ENGINE_NAMES = ("clean", "clean_channel")
+_ENGINE_NAMES = ("clean", "clean_channel", "clean_with_report")
 
 
 def __getattr__(name: str):
-    """Import ``clean`` and ``clean_channel`` from the engine when first asked for."""
+    """Import the engine's functions (``clean``, ``clean_with_report``, ``clean_channel``) when first asked for."""
     if name in _ENGINE_NAMES:
         from tracevet.cleaning import engine
 
@@ -37,6 +39,8 @@ def __getattr__(name: str):
 __all__ = [
     "CleaningSettings",
     "DEFAULT_SETTINGS",
+    "PROFILES",
+    "PROFILE_HELP",
     "SETTING_CHOICES",
     "SETTING_HELP",
     "SETTING_NAMES",
@@ -45,6 +49,7 @@ __all__ = [
     "band_hz",
     "clean",
     "clean_channel",
+    "clean_with_report",
     "load_profile",
     "resolve_level",
 ]

@@ -26,10 +26,11 @@ from typing import Callable
 import numpy as np
 import pywt
 
-from tracevet.cleaning import filters, shrinkage
+from tracevet.cleaning import baseline, filters, shrinkage
 from tracevet.cleaning.blocks import DEFAULT_BLOCK_SAMPLES, plan_blocks, process_inplace
 from tracevet.cleaning.level_statistics import LevelStatistics, level_thresholds, levels_needed, wavelet_overlap
 from tracevet.cleaning.levels import resolve_level
+from tracevet.cleaning.resolve import CleaningReport, resolve_settings, resolve_settings_for
 from tracevet.cleaning.settings import CleaningSettings
 from tracevet.errors import SettingsError
 from tracevet.recording.model import Recording
@@ -56,20 +57,18 @@ class _Stages:
         self.progress(float(self.start + self.width * (lo + (hi - lo) * min(max(fraction, 0.0), 1.0))))
 
 
-def _apply_filters(buf: np.ndarray, fs: float, settings: CleaningSettings, block_samples: int, report) -> None:
-    stages = filters.stage_filters(fs, settings)
-    for sos, lowest in stages:
-        overlap = filters.settle_samples(fs, lowest)
-        blocks = plan_blocks(buf.shape[0], max(block_samples, 4 * overlap), overlap)
+def _apply_filters(buf: np.ndarray, fs: float, stages: list, block_samples: int, report) -> None:
+    for stage in stages:
+        align = baseline.block_length(fs) if stage.kind == "median" else 1
+        blocks = plan_blocks(buf.shape[0], max(block_samples, 4 * stage.overlap), stage.overlap, align)
 
-        def stage(seg, _block, sos=sos, lowest=lowest):
-            return filters.zero_phase(seg, sos, fs, lowest)
+        def run_stage(seg, _block, stage=stage):
+            return stage.apply(seg, fs)
 
         def block_done(i, n=len(blocks)):
             report((i + 1) / n)
 
-        process_inplace(buf, blocks, stage, after_block=block_done)
-
+        process_inplace(buf, blocks, run_stage, after_block=block_done)
 
 
 def _dwt_single_block(buf: np.ndarray, settings: CleaningSettings, level: int) -> None:
@@ -134,7 +133,10 @@ def clean_channel(
         out = np.empty(n, dtype=dtype)
     buf = out
     buf[:] = x
-    n_filters = len(filters.stage_filters(fs, settings))
+    if settings.mains == "auto":
+        settings = resolve_settings_for(x, fs, settings).settings
+    filter_stages = filters.stage_filters(fs, settings)
+    n_filters = len(filter_stages)
     weights = [1.0] * n_filters + [0.5, 2.0 if settings.transform == "swt" else 1.0]
     stages = _Stages(progress, 0.0, 1.0, weights)
     stages.report(0, 0.0)
@@ -145,7 +147,7 @@ def clean_channel(
         if fraction >= 1.0:
             current[0] += 1
 
-    _apply_filters(buf, fs, settings, block_samples, filter_report)
+    _apply_filters(buf, fs, filter_stages, block_samples, filter_report)
     wavelet = shrinkage.as_wavelet(settings.wavelet)
     blocks = plan_blocks(n, block_samples, wavelet_overlap(wavelet, level), 1 << level)
     if len(blocks) == 1:  # one transform serves statistics and shrinkage
@@ -177,6 +179,8 @@ def clean(
 
     Returns a new :class:`Recording` with the same shape, dtype (float32
     stays float32), rate, channel names, units, kind and start time.
+    ``mains: auto`` is resolved on the record first (:func:`clean_with_report`
+    also returns what was resolved and applied).
 
     Parameters
     ----------
@@ -196,14 +200,31 @@ def clean(
         The record is too short for the requested level, or a filter does not
         fit the sampling rate; the message names the recording's source.
     """
+    return clean_with_report(recording, settings, progress, block_samples)[0]
+
+
+def clean_with_report(
+    recording: Recording,
+    settings: CleaningSettings,
+    progress: Progress = None,
+    block_samples: int = DEFAULT_BLOCK_SAMPLES,
+) -> tuple[Recording, CleaningReport]:
+    """:func:`clean`, also returning the :class:`CleaningReport`.
+
+    The report's ``settings`` are the settings actually applied (``mains``
+    resolved to ``50``, ``60`` or ``off``): record those, and their digest,
+    as the run's settings.
+    """
     if not isinstance(settings, CleaningSettings):
         raise TypeError("settings must be a CleaningSettings")
     samples = recording.samples
     n, n_channels = samples.shape
     dtype = _work_dtype(samples)
     resolve_level(settings, recording.fs, n, settings.wavelet, source=recording.source)
+    report = resolve_settings(recording, settings)
+    applied = report.settings
     try:
-        filters.stage_filters(recording.fs, settings)
+        filters.stage_filters(recording.fs, applied)
     except SettingsError as exc:
         raise SettingsError(recording.source, f"{exc.source} {exc.problem}") from None
     result = np.empty((n, n_channels), dtype=dtype)
@@ -213,10 +234,10 @@ def clean(
             sub = lambda f, c=c: progress((c + f) / n_channels)  # noqa: E731
         if n_channels == 1:
             clean_channel(
-                samples[:, 0], recording.fs, settings, recording.source, sub, block_samples, out=result.reshape(n)
+                samples[:, 0], recording.fs, applied, recording.source, sub, block_samples, out=result.reshape(n)
             )
         else:
-            result[:, c] = clean_channel(samples[:, c], recording.fs, settings, recording.source, sub, block_samples)
+            result[:, c] = clean_channel(samples[:, c], recording.fs, applied, recording.source, sub, block_samples)
     if progress is not None:
         progress(1.0)
-    return recording.with_samples(result)
+    return recording.with_samples(result), report

@@ -1,13 +1,15 @@
-"""Zero-phase baseline and mains filters (second-order sections, forward-backward)."""
+"""Filters before the shrinkage: zero-phase baseline high-pass and mains notches, robust baseline."""
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
 from scipy import signal
 
+from tracevet.cleaning import baseline
 from tracevet.errors import SettingsError
 
 BASELINE_ORDER = 2
@@ -64,10 +66,7 @@ def mains_sos(
     """
     _check_band("mains", "notch bandwidth", bandwidth_hz, fs)
     sections = []
-    for k in range(1, int(harmonics) + 1):
-        f = k * float(mains_hz)
-        if f >= fs / 2 - bandwidth_hz:
-            break
+    for f in mains_frequencies(fs, mains_hz, harmonics, bandwidth_hz):
         b, a = signal.iirnotch(f, f / bandwidth_hz, fs=fs)
         sections.append(signal.tf2sos(b, a))
     return np.vstack(sections) if sections else None
@@ -83,23 +82,75 @@ def settle_samples(fs: float, lowest_hz: float) -> int:
     return int(math.ceil(8.0 * fs / lowest_hz))
 
 
-def zero_phase(x: np.ndarray, sos: np.ndarray, fs: float, lowest_hz: float) -> np.ndarray:
-    """Apply ``sos`` forward and backward (``scipy.signal.sosfiltfilt``).
+def zero_phase(x: np.ndarray, sos: np.ndarray, fs: float, lowest_hz: float, ends: str = "baseline") -> np.ndarray:
+    """Apply ``sos`` forward and backward (``scipy.signal.sosfiltfilt``) without inventing end transients.
 
-    The ends are padded by odd extension over up to one period of the
-    lowest corner frequency, so a record starts and ends without a jump.
-    Returns an array of ``x``'s dtype.
+    The ends are extended over up to one period of the lowest corner frequency.
+    ``ends='baseline'`` (for high-passes): about the record's local baseline
+    (:func:`tracevet.cleaning.baseline.end_padded`: the baseline continued by odd
+    extension, the rest mirrored), not about the end sample, so a record that
+    starts or ends inside a wave is not pulled towards that wave's height for
+    seconds. ``ends='odd'`` (for notches): odd extension about the end sample,
+    continuous in value and slope, so a mains line runs on into the extension
+    (a notch passes the slow offset that odd extension adds). Returns an array of
+    ``x``'s dtype.
     """
     n = x.shape[0]
     padlen = min(n - 1, int(math.ceil(fs / lowest_hz)))
-    y = signal.sosfiltfilt(sos, x, padtype="odd", padlen=max(padlen, 0))
-    return y.astype(x.dtype, copy=False)
+    if padlen <= 0:
+        return signal.sosfiltfilt(sos, x, padlen=0).astype(x.dtype, copy=False)
+    if ends == "odd":
+        return signal.sosfiltfilt(sos, x, padtype="odd", padlen=padlen).astype(x.dtype, copy=False)
+    padded = baseline.end_padded(x, fs, padlen)
+    y = signal.sosfiltfilt(sos, padded, padlen=0)
+    return y[padlen : padlen + n].astype(x.dtype, copy=False)
 
 
-def stage_filters(fs: float, settings) -> list[tuple[np.ndarray, float]]:
-    """The filters ``settings`` asks for, as ``(sos, lowest corner Hz)`` pairs, in order.
+@dataclass(frozen=True)
+class Stage:
+    """One filtering stage before the shrinkage.
 
-    Designs are cached per rate and settings (the arrays are shared: do not modify them).
+    ``kind`` is ``'iir'`` (``sos`` applied by :func:`zero_phase`, ``lowest_hz`` its
+    lowest corner) or ``'median'`` (the robust baseline of
+    :mod:`tracevet.cleaning.baseline`). ``overlap`` is the number of samples
+    a block must be read with on each side for the result to equal whole-record
+    processing.
+    """
+
+    kind: str
+    sos: np.ndarray | None
+    lowest_hz: float
+    overlap: int
+    ends: str = "baseline"
+
+    def apply(self, segment: np.ndarray, fs: float) -> np.ndarray:
+        """The stage's output for ``segment`` (a new array of its dtype)."""
+        if self.kind == "median" or self.sos is None:
+            return baseline.remove(segment, fs)
+        return zero_phase(segment, self.sos, fs, self.lowest_hz, self.ends)
+
+
+def mains_frequencies(
+    fs: float, mains_hz: float, harmonics: int, bandwidth_hz: float = MAINS_BANDWIDTH_HZ
+) -> list[float]:
+    """Multiples of ``mains_hz`` (up to ``harmonics`` of them) that a notch can take at rate ``fs``."""
+    out = []
+    for k in range(1, int(harmonics) + 1):
+        f = k * float(mains_hz)
+        if f >= fs / 2 - bandwidth_hz:
+            break
+        out.append(f)
+    return out
+
+
+def stage_filters(fs: float, settings) -> list[Stage]:
+    """The filters ``settings`` asks for, as :class:`Stage` objects, in order.
+
+    ``mains`` must be resolved (``50``, ``60`` or ``off``; see
+    :func:`tracevet.cleaning.resolve.resolve_settings`); ``auto`` here counts as off.
+    An explicit ``mains=50`` or ``60`` at a rate where no multiple lies below the
+    Nyquist frequency is refused (nothing would be removed). Designs are cached
+    per rate and settings (the arrays are shared: do not modify them).
     """
     return list(
         _stage_filters(
@@ -109,12 +160,19 @@ def stage_filters(fs: float, settings) -> list[tuple[np.ndarray, float]]:
 
 
 @lru_cache(maxsize=64)
-def _stage_filters(fs: float, baseline: str, cutoff_hz: float, mains: str, harmonics: int) -> tuple:
+def _stage_filters(fs: float, baseline_method: str, cutoff_hz: float, mains: str, harmonics: int) -> tuple:
     stages = []
-    if baseline == "butterworth":
-        stages.append((baseline_sos(fs, cutoff_hz), cutoff_hz))
-    if mains != "off":
+    if baseline_method == "butterworth":
+        stages.append(Stage("iir", baseline_sos(fs, cutoff_hz), cutoff_hz, settle_samples(fs, cutoff_hz)))
+    elif baseline_method == "median":
+        stages.append(Stage("median", None, 0.0, baseline.reach_samples(fs) + 2 * baseline.block_length(fs)))
+    if mains in ("50", "60"):
         sos = mains_sos(fs, float(mains), harmonics)
-        if sos is not None:
-            stages.append((sos, MAINS_BANDWIDTH_HZ))
+        if sos is None:
+            raise SettingsError(
+                "mains",
+                f"{mains} cannot be notched at {fs:g} Hz: every multiple of {mains} Hz lies at or above the Nyquist "
+                f"frequency ({fs / 2:g} Hz) less the notch bandwidth; use mains=off (or auto)",
+            )
+        stages.append(Stage("iir", sos, MAINS_BANDWIDTH_HZ, settle_samples(fs, MAINS_BANDWIDTH_HZ), "odd"))
     return tuple(stages)

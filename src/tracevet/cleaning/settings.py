@@ -30,8 +30,8 @@ SETTING_CHOICES: dict[str, tuple] = {
     "rule": tuple(sorted(("universal", "sure", "hybrid", "minimax", "bayes"))),
     "threshold_mode": tuple(sorted(("soft", "hard", "garrote"))),
     "noise_estimate": ("finest", "per_level"),
-    "baseline": ("butterworth", "off"),
-    "mains": ("50", "60", "off"),
+    "baseline": ("butterworth", "median", "off"),
+    "mains": ("50", "60", "auto", "off"),
 }
 
 SETTING_HELP: dict[str, str] = {
@@ -42,9 +42,12 @@ SETTING_HELP: dict[str, str] = {
     "rule": "threshold rule: universal, sure, hybrid (SureShrink), minimax (RiskShrink) or bayes (BayesShrink)",
     "threshold_mode": "how coefficients are shrunk: soft, hard or garrote (non-negative garrote)",
     "noise_estimate": "noise level from the finest detail level (white noise) or per level (coloured noise)",
-    "baseline": "baseline wander removal: butterworth (zero-phase high-pass) or off",
-    "baseline_cutoff_hz": "baseline high-pass cutoff in Hz, -3 dB point of the zero-phase response (0 < f <= 5)",
-    "mains": "mains interference removal with zero-phase notches at 50 or 60 Hz and harmonics, or off",
+    "baseline": "baseline wander removal: median (robust two-stage median estimate, subtracted), "
+    "butterworth (zero-phase high-pass at baseline_cutoff_hz) or off",
+    "baseline_cutoff_hz": "butterworth baseline: high-pass cutoff in Hz, -3 dB point of the zero-phase response "
+    "(0 < f <= 5)",
+    "mains": "mains notches (zero-phase) at 50 or 60 Hz and harmonics; auto: only if a 50/60 Hz line stands out "
+    "of the spectrum by 15 dB (the run records what was found and applied); or off",
     "mains_harmonics": "number of mains multiples notched (1 = the fundamental only; 1..10)",
 }
 
@@ -72,9 +75,11 @@ class CleaningSettings:
     rule : {'universal', 'sure', 'hybrid', 'minimax', 'bayes'}
     threshold_mode : {'soft', 'hard', 'garrote'}
     noise_estimate : {'finest', 'per_level'}
-    baseline : {'butterworth', 'off'}
+    baseline : {'median', 'butterworth', 'off'}
     baseline_cutoff_hz : float
-    mains : {'off', '50', '60'}
+        Used by ``butterworth`` only.
+    mains : {'auto', 'off', '50', '60'}
+        ``auto`` is resolved on each record (:mod:`tracevet.cleaning.resolve`).
     mains_harmonics : int
     """
 
@@ -85,9 +90,9 @@ class CleaningSettings:
     rule: str = "hybrid"
     threshold_mode: str = "garrote"
     noise_estimate: str = "finest"
-    baseline: str = "butterworth"
+    baseline: str = "median"
     baseline_cutoff_hz: float = 0.05
-    mains: str = "off"
+    mains: str = "auto"
     mains_harmonics: int = 3
 
     def __post_init__(self) -> None:
@@ -183,6 +188,23 @@ def _validate(s: CleaningSettings, source: str) -> None:
 
 DEFAULT_SETTINGS = CleaningSettings()
 
+# Built-in profiles, by name (``--profile NAME``); docs/cleaning.md gives the measured trade-off of each.
+PROFILES: dict[str, CleaningSettings] = {
+    "default": DEFAULT_SETTINGS,
+    # The default before issue 10: nothing but the upper bands is thresholded, a 0.05 Hz high-pass
+    # (AHA 2007 diagnostic low-frequency cutoff), no notch unless asked for.
+    "diagnostic": CleaningSettings(
+        transform="swt", wavelet="sym4", extension="symmetric", level="auto", rule="hybrid",
+        threshold_mode="garrote", noise_estimate="finest", baseline="butterworth", baseline_cutoff_hz=0.05,
+        mains="off", mains_harmonics=3,
+    ),
+}
+
+PROFILE_HELP: dict[str, str] = {
+    "default": "removes noise, mains lines it finds and baseline wander (robust median baseline)",
+    "diagnostic": "conservative, for diagnostic-grade records: upper bands only, 0.05 Hz high-pass, no notch",
+}
+
 SETTING_NAMES: tuple[str, ...] = tuple(f.name for f in fields(CleaningSettings))
 
 
@@ -214,13 +236,19 @@ def _yaml_problem(exc: yaml.YAMLError) -> str:
 
 
 def load_profile(path: str | os.PathLike) -> CleaningSettings:
-    """Load a YAML settings profile (safe loading only), over the defaults.
+    """A built-in profile by name (:data:`PROFILES`), or a YAML settings profile file over the defaults.
+
+    A built-in name (``default``, ``diagnostic``) wins over a file of the same
+    name in the current folder (write ``./diagnostic`` for the file). Files are
+    read with safe loading only.
 
     The profile is a mapping of setting names to values; settings it does not
     name keep their default. Unknown names, invalid values, unsafe tags
     (``!!python/...``) and malformed YAML raise a one-line
     :class:`SettingsError` naming the file.
     """
+    if isinstance(path, str) and path in PROFILES:
+        return PROFILES[path]
     path = Path(path)
     source = str(path)
     try:

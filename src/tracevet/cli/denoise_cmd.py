@@ -21,6 +21,8 @@ from pathlib import Path
 from tracevet.caution import CAUTION
 from tracevet.cleaning import (
     DEFAULT_SETTINGS,
+    PROFILE_HELP,
+    PROFILES,
     SETTING_CHOICES,
     SETTING_HELP,
     CleaningSettings,
@@ -64,7 +66,12 @@ def settings_reference() -> str:
         lines.append(f"      {help_text}")
         if name in SETTING_CHOICES:
             lines.append(f"      choices: {_compact_choices(SETTING_CHOICES[name])}")
+    lines += ["", "built-in profiles (--profile NAME; see docs/cleaning.md for their measured trade-offs):"]
+    lines += [f"  {name}: {PROFILE_HELP[name]}" for name in PROFILES]
     lines += [
+        "",
+        "mains auto: the settings digest printed and recorded is that of the settings applied (mains resolved",
+        "to 50, 60 or off); the line found is printed after the 'cleaned' line.",
         "",
         "example:",
         "  tracevet denoise holter.edf holter-clean.edf --set mains=50 --set transform=dwt",
@@ -92,8 +99,9 @@ def add_settings_arguments(parser: argparse.ArgumentParser) -> None:
     """--profile, --set and --show-settings."""
     parser.add_argument(
         "--profile",
-        metavar="FILE",
-        help="YAML profile of settings (safe loading only); unnamed settings keep their default",
+        metavar="NAME|FILE",
+        help=f"built-in profile ({', '.join(PROFILES)}) or a YAML profile file (safe loading only); "
+        "unnamed settings keep their default",
     )
     parser.add_argument(
         "--set",
@@ -155,15 +163,18 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("tracevet denoise", "needs INPUT and OUTPUT (see 'tracevet denoise --help')")
     output = check_output_path(args.output, args.input)
     assess_limits = assess_cmd.check_denoise_assess_args(args)
-    from tracevet.cleaning import clean  # the engine (and SciPy) only when a record is cleaned
+    from tracevet.cleaning import clean_with_report  # the engine (and SciPy) only when a record is cleaned
 
     recording = read_input(args)
-    cleaned = clean(recording, settings)
+    cleaned, report = clean_with_report(recording, settings)
     write_recording(cleaned, output)
+    applied = report.settings
     print(
         f"cleaned {inert(args.input)} -> {inert(args.output)}: {cleaned.n_channels} channel(s), "
-        f"{cleaned.n_samples} samples at {cleaned.fs:g} Hz, settings {settings.digest()[:12]}"
+        f"{cleaned.n_samples} samples at {cleaned.fs:g} Hz, settings {applied.digest()[:12]}"
     )
+    for line in report.lines(inert(recording.units or "")):
+        print(f"  {line}")
     if args.assess or args.assess_json:
         return assess_cmd.assess_after_denoise(args, recording, cleaned, assess_limits)
     return 0

@@ -91,6 +91,12 @@ def register(subparsers) -> None:
         "instead of receiving their bytes",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument(
+        "--suggest",
+        action="store_true",
+        help="then, for each record whose newest run has flags, add a run made with suggested settings "
+        "(docs/suggest.md)",
+    )
     p.set_defaults(func=cmd_clean)
 
     p = subparsers.add_parser(
@@ -289,9 +295,17 @@ def cmd_clean(args) -> int:
     outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress, cluster=cluster)
     made = [o for o in outcomes if o.run_id]
     flagged = Counter(o.worst_severity or "none" for o in made)
+
+    def finish(code: int) -> int:
+        if not getattr(args, "suggest", False):
+            return code
+        from tracevet.cli.suggest_cmd import suggest_pass
+
+        return max(code, suggest_pass(queue, args, cluster))
+
     if not outcomes:
         print("nothing waiting to be cleaned")
-        return 0
+        return finish(0)
     where = f" on {inert(cluster.address, 80)}" if cluster is not None else ""
     print(
         f"cleaned {len(made)} record(s){where}: {flagged.get('fail', 0)} with fail flags, "
@@ -307,8 +321,8 @@ def cmd_clean(args) -> int:
             f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting",
             file=sys.stderr,
         )
-        return 1
-    return 0
+        return finish(1)
+    return finish(0)
 
 
 # -------------------------------------------------------------------- status

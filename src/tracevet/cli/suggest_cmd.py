@@ -40,6 +40,10 @@ def profile_text(suggestion, input_name: str) -> str:
     for flag in best.flags:
         lines += _comment(f"  {flag.severity} {flag.id}: {inert(flag.message, 300)}")
     lines += _comment(f"changed from the base settings: {best.change}")
+    report = getattr(suggestion, "report", None)
+    if report is not None:
+        for line in report.lines():
+            lines += _comment(f"on this record: {inert(line, 300)}")
     lines += _comment(f"why: {suggestion.reason}")
     for i, other in enumerate(suggestion.runners_up, start=2):
         lines += _comment(f"#{i}: {other.change} ({other.flags_text()}; {other.measures_text()}; on {other.scope})")
@@ -88,7 +92,10 @@ def run(args: argparse.Namespace) -> int:
             write_recording(suggestion.cleaned, output)
             print(f"tracevet suggest: wrote the cleaned record to {inert(args.write, 200)}", file=sys.stderr)
         else:
-            print(f"tracevet suggest: nothing written to {inert(args.write, 200)} (no candidate without a fail flag)", file=sys.stderr)
+            print(
+                f"tracevet suggest: nothing written to {inert(args.write, 200)} (no candidate without a fail flag)",
+                file=sys.stderr,
+            )
     return 0 if suggestion.found else 1
 
 
@@ -112,12 +119,61 @@ def register(subparsers) -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     add_input_arguments(parser)
-    parser.add_argument("--profile", metavar="FILE", help="settings the search starts from (YAML profile; default: the defaults)")
+    parser.add_argument(
+        "--profile", metavar="FILE", help="settings the search starts from (YAML profile; default: the defaults)"
+    )
     parser.add_argument("--limits", metavar="FILE", help="flag limits (YAML), as for 'tracevet assess'")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of the profile")
     parser.add_argument(
-        "--write", metavar="OUTPUT", help=f"also write the record cleaned with the suggestion ({', '.join(SUPPORTED_WRITE)})"
+        "--write",
+        metavar="OUTPUT",
+        help=f"also write the record cleaned with the suggestion ({', '.join(SUPPORTED_WRITE)})",
     )
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.set_defaults(func=run)
     return parser
+
+
+def suggest_pass(queue, args: argparse.Namespace, cluster=None) -> int:
+    """``tracevet clean QUEUE --suggest``: a suggested run for every flagged record; 1 if any record failed."""
+    from collections import Counter
+
+    from tracevet.workqueue.suggested import suggest_flagged
+
+    bar = None
+    if not args.quiet:
+        from tracevet.cli.progress import ProgressBar
+
+        bar = ProgressBar("suggesting")
+    errors = []
+
+    def progress(done, total, outcome):
+        if outcome is not None and outcome.error:
+            errors.append(outcome)
+            if bar:
+                bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
+        if bar and total:
+            bar.update(done, total)
+
+    outcomes = suggest_flagged(queue, workers=max(1, int(args.workers)), progress=progress, cluster=cluster)
+    if not outcomes:
+        print("no flagged record waiting for review: nothing to suggest")
+        return 0
+    made = [o for o in outcomes if o.run_id]
+    severities = Counter(o.worst_severity or "none" for o in made)
+    print(
+        f"suggested runs added for {len(made)} of {len(outcomes)} flagged record(s): {severities.get('fail', 0)} with "
+        f"fail flags, {severities.get('warn', 0)} with warnings, {severities.get('none', 0)} without flags"
+    )
+    for outcome in outcomes:
+        if outcome.run_id:
+            print(f"  {inert(outcome.record_id)}: {outcome.run_id} (suggested, {outcome.n_flags} flag(s))")
+        elif outcome.skipped:
+            print(f"  {inert(outcome.record_id)}: no run added: {inert(outcome.skipped, 200)}")
+    if errors:
+        if bar is None:
+            for outcome in errors:
+                print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
+        print(f"tracevet: no suggestion for {len(errors)} record(s) (listed above)", file=sys.stderr)
+        return 1
+    return 0

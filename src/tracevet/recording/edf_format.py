@@ -14,9 +14,10 @@ integers. Physical value = (digital - dmin) * (pmax - pmin) / (dmax - dmin) + pm
 Reading: the ordinary signals that share the sampling rate of the first
 ordinary signal are loaded; ``EDF Annotations`` signals are skipped; EDF+D
 (discontinuous) files are refused because a gap cannot be represented in a
-uniformly sampled recording. Writing: continuous EDF+ (``EDF+C``) with an
-empty annotation-free layout (plain EDF header fields) and records of whole
-samples.
+uniformly sampled recording. Writing: plain EDF (the 44-byte reserved field
+left blank), with records of whole samples. EDF+ would require an ``EDF
+Annotations`` signal in every file (Kemp & Olivan 2003); tracevet
+has no annotations to store, and every EDF+ reader also reads plain EDF.
 """
 
 from __future__ import annotations
@@ -197,7 +198,7 @@ def format_edf(recording: Recording) -> bytes:
     head.write(_field(start.strftime("%d.%m.%y"), 8))
     head.write(_field(start.strftime("%H.%M.%S"), 8))
     head.write(_field(str(256 * (n_sig + 1)), 8))
-    head.write(_field("EDF+C", 44))
+    head.write(_field("", 44))  # plain EDF: no "EDF+C", which needs an annotation signal
     head.write(_field(str(n_records), 8))
     head.write(_num_field(record_s))
     head.write(_field(str(n_sig), 4))

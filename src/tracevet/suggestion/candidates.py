@@ -16,7 +16,10 @@ dimension                 values tried
 ``baseline``              every baseline method at the base cutoff, and the
                           high-pass at 0.05 and 0.15 Hz (the cutoffs that pass
                           the IEC 60601-2-25 low-frequency impulse test, see
-                          docs/cleaning.md), and ``off``
+                          docs/cleaning.md); ``off`` only when the base
+                          settings have it off (the search never switches
+                          baseline removal off: a stable baseline is what the
+                          ST measure and the reader need)
 ``rule/threshold_mode``   hybrid+garrote, sure+garrote, bayes+garrote,
                           bayes+soft, minimax+garrote, universal+garrote,
                           hybrid+soft, hybrid+hard
@@ -35,6 +38,7 @@ can be compared with them.
 from __future__ import annotations
 
 from dataclasses import replace
+from functools import partial
 from typing import Callable, Iterator
 
 from tracevet.cleaning import SETTING_CHOICES, CleaningSettings
@@ -84,7 +88,7 @@ def dimensions(fs: float, base: CleaningSettings) -> list[Dimension]:
     def mains(s: CleaningSettings) -> list[CleaningSettings]:
         out: list[CleaningSettings] = []
         for value in _mains_values(fs):
-            out += _try(lambda value=value: replace(s, mains=value))
+            out += _try(partial(replace, s, mains=value))
         return out
 
     def baseline(s: CleaningSettings) -> list[CleaningSettings]:
@@ -92,10 +96,11 @@ def dimensions(fs: float, base: CleaningSettings) -> list[Dimension]:
         for method in SETTING_CHOICES["baseline"]:
             if method == "off":
                 continue
-            out += _try(lambda method=method: replace(s, baseline=method, baseline_cutoff_hz=base.baseline_cutoff_hz))
+            out += _try(partial(replace, s, baseline=method, baseline_cutoff_hz=base.baseline_cutoff_hz))
         for cutoff in BASELINE_CUTOFFS_HZ:
-            out += _try(lambda cutoff=cutoff: replace(s, baseline="butterworth", baseline_cutoff_hz=cutoff))
-        out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
+            out += _try(partial(replace, s, baseline="butterworth", baseline_cutoff_hz=cutoff))
+        if base.baseline == "off":
+            out += _try(lambda: replace(s, baseline="off", baseline_cutoff_hz=base.baseline_cutoff_hz))
         return out
 
     def rule_mode(s: CleaningSettings) -> list[CleaningSettings]:

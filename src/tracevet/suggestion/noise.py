@@ -11,9 +11,12 @@ Electrocardiology). For a trace ``s`` and the R peaks found on the original:
    not count, while baseline wander, which moves the level from beat to
    beat, does;
 2. the template ``T`` is the sample-wise median of the rows;
-3. the off-beat power of ``s`` is the median over beats of the mean square
-   of ``row - T`` (a median over beats, so that ectopic beats, whose shape
-   differs from the template, do not weigh in).
+3. the off-beat power of ``s`` is the mean over beats of the mean square of
+   ``row - T``. Beats whose off-beat power in the *original* exceeds three
+   times its median (ectopic beats, artefacts: their shape differs from the
+   template) are left out, the same beats for every trace, so a cleaning that
+   smooths an ectopic beat is not credited with removing noise, while a
+   cleaning that disturbs a few beats (at the record's ends, say) is charged.
 
 With ``x`` the original, ``y`` the cleaned trace and ``r = x - y`` the part
 the cleaning removed:
@@ -48,6 +51,9 @@ POST_RR = 0.6
 MAX_BEATS = 600
 # Fewest beats for an estimate.
 MIN_BEATS = 3
+# Beats whose off-beat power in the original exceeds this multiple of the median
+# (ectopic beats, artefacts) are left out of every trace's estimate.
+OUTLIER_FACTOR = 3.0
 
 
 @dataclass(frozen=True)
@@ -113,10 +119,10 @@ def _rows(trace: np.ndarray, starts: np.ndarray, width: int) -> np.ndarray:
     return rows
 
 
-def _off_beat_power(rows: np.ndarray) -> tuple[float, np.ndarray]:
+def _residual_powers(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     template = np.median(rows, axis=0)
     residual = rows - template
-    return float(np.median(np.mean(residual * residual, axis=1))), template
+    return np.mean(residual * residual, axis=1), template
 
 
 def estimate(original: np.ndarray, cleaned: np.ndarray, peaks: np.ndarray, fs: float) -> NoiseEstimate:
@@ -134,16 +140,18 @@ def estimate(original: np.ndarray, cleaned: np.ndarray, peaks: np.ndarray, fs: f
         return NoiseEstimate(0.0, 0.0, 0.0, 0)
     x = _rows(original, starts, width)
     y = _rows(cleaned, starts, width)
-    noise_in, _ = _off_beat_power(x)
-    noise_left, _ = _off_beat_power(y)
-    removed = x - y
+    power_x, _ = _residual_powers(x)
+    keep = power_x <= OUTLIER_FACTOR * np.median(power_x)  # beats of the usual shape, judged on the original
+    power_y, _ = _residual_powers(y[keep])
+    removed = x[keep] - y[keep]
     removed -= np.median(removed)
-    removed_noise, lost_template = _off_beat_power(removed)
+    power_r, lost_template = _residual_powers(removed)
     # The template is a median of N rows: it keeps noise of variance pi sigma^2 / (2 N)
     # (large-sample variance of the median of normal data, common practice), which is
     # not lost signal and is taken out.
-    lost = float(np.mean(lost_template * lost_template)) - 0.5 * math.pi * removed_noise / starts.size
-    return NoiseEstimate(noise_in, noise_left, max(0.0, lost), int(starts.size))
+    n_kept = int(np.sum(keep))
+    lost = float(np.mean(lost_template * lost_template)) - 0.5 * math.pi * float(np.mean(power_r)) / n_kept
+    return NoiseEstimate(float(np.mean(power_x[keep])), float(np.mean(power_y)), max(0.0, lost), n_kept)
 
 
 def pooled_removed_db(estimates: list[NoiseEstimate]) -> float | None:

@@ -6,6 +6,7 @@ import hashlib
 import json
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 from tracevet.cleaning import CleaningSettings
 
@@ -49,6 +50,10 @@ class CandidateResult:
         Why the settings could not be used on this record (then nothing else is set).
     n_changes : int
         How many settings differ from the base settings.
+    screened : bool
+        Not assessed: its estimated noise removed fell a whole ranking step
+        below that of a candidate without flags found before, so it could not
+        come first (flags, shape change and metrics are then unknown).
     """
 
     settings: CleaningSettings
@@ -61,6 +66,7 @@ class CandidateResult:
     roles: tuple = ("searched",)
     error: str | None = None
     n_changes: int = 0
+    screened: bool = False
 
     @property
     def n_fail(self) -> int:
@@ -79,6 +85,8 @@ class CandidateResult:
 
     def flags_text(self) -> str:
         """``no flags`` or ``2 fail (r-peak-change, qrs-widening), 1 warn (ringing)``."""
+        if self.screened:
+            return "not assessed (removes less noise than a candidate without flags)"
         if not self.flags:
             return "no flags"
         parts = []
@@ -91,7 +99,9 @@ class CandidateResult:
 
     def measures_text(self) -> str:
         """Noise removed and beat shape change, in words."""
-        noise = "noise removed n/a" if self.noise_removed_db is None else f"noise removed {self.noise_removed_db:.1f} dB"
+        noise = (
+            "noise removed n/a" if self.noise_removed_db is None else f"noise removed {self.noise_removed_db:.1f} dB"
+        )
         shape = "" if self.shape_change_percent is None else f", beat shape change {self.shape_change_percent:.1f} %"
         return noise + shape
 
@@ -109,6 +119,7 @@ class CandidateResult:
             "shape_change_percent": _number(self.shape_change_percent),
             "metrics": {k: _number(v) for k, v in self.metrics.items()},
             "error": self.error,
+            "screened": self.screened,
         }
 
 
@@ -127,8 +138,18 @@ def rank_key(c: CandidateResult) -> tuple:
         return (True, True, 1 << 30, 1 << 30, math.inf, math.inf, 1 << 30)
     noise = c.noise_removed_db
     step = math.inf if noise is None else -math.floor(noise / TIE_DB)
+    if c.screened:  # after every assessed candidate
+        return (True, True, 1 << 29, 1 << 29, step, 0.0, c.n_changes)
     shape = c.shape_change_percent if c.shape_change_percent is not None else 0.0
     return (c.n_fail > 0, c.n_warn > 0, c.n_fail, c.n_warn, step, shape, c.n_changes)
+
+
+def cannot_beat(c: CandidateResult, bar: CandidateResult) -> bool:
+    """True when ``c`` cannot rank before ``bar`` whatever its flags: ``bar`` has no flag and
+    ``c``'s estimated noise removed lies a whole :data:`TIE_DB` step lower."""
+    if bar.flags or bar.screened or bar.noise_removed_db is None or c.noise_removed_db is None:
+        return False
+    return math.floor(c.noise_removed_db / TIE_DB) < math.floor(bar.noise_removed_db / TIE_DB)
 
 
 def candidate_set_digest(candidates: list[CandidateResult], windows: list[tuple[float, float]]) -> str:
@@ -142,8 +163,11 @@ def candidate_set_digest(candidates: list[CandidateResult], windows: list[tuple[
 
 
 def explain(best: CandidateResult, ranked: list[CandidateResult], current: CandidateResult | None) -> str:
-    """Why ``best`` came first, in words: the ranking step that decided, against the next candidate and the current settings."""
-    usable = [c for c in ranked if c.error is None]
+    """Why ``best`` came first, in words.
+
+    The ranking step that decided, against the next candidate and the current settings.
+    """
+    usable = [c for c in ranked if c.error is None and not c.screened]
     others = [c for c in usable if c is not best and c.settings != best.settings]
     sentences = []
     if best.n_fail:
@@ -151,13 +175,17 @@ def explain(best: CandidateResult, ranked: list[CandidateResult], current: Candi
     elif best.n_warn:
         clean = sum(1 for c in usable if not c.flags)
         sentences.append(
-            f"No candidate was free of warnings; this one has no fail flag and the fewest warnings ({best.flags_text()})."
+            "No candidate was free of warnings; this one has no fail flag and the fewest warnings "
+            f"({best.flags_text()})."
             if clean == 0
             else f"It has {best.flags_text()}."
         )
     else:
         n_clean = sum(1 for c in usable if not c.flags)
-        sentences.append(f"It has no flag ({n_clean} of {len(usable)} candidates have none).")
+        screened = sum(1 for c in ranked if c.screened)
+        verb = "was" if screened == 1 else "were"
+        more = f"; {screened} more removed less noise than one of those and {verb} not assessed" if screened else ""
+        sentences.append(f"It has no flag ({n_clean} of the {len(usable)} candidates assessed have none{more}).")
     if others:
         nxt = min(others, key=rank_key)
         step = _deciding_step(best, nxt)
@@ -186,7 +214,10 @@ def _deciding_step(best: CandidateResult, nxt: CandidateResult) -> str:
             f"({sa:.{digits}f} % against {sb:.{digits}f} %)"
         )
     if best.n_changes != nxt.n_changes:
-        return "both are equal on flags, noise removed and shape change; the chosen settings change fewer settings from the base"
+        return (
+            "both are equal on flags, noise removed and shape change; "
+            "the chosen settings change fewer settings from the base"
+        )
     return "the two are equal on every ranking step; the earlier in the search order is kept"
 
 
@@ -205,9 +236,12 @@ class Suggestion:
     base, current : CandidateResult or None
         The base settings' and the current run's settings' results.
     cleaned : Recording
-        The whole record cleaned with ``best.settings`` (``tracevet.cleaning.clean``).
+        The whole record cleaned with ``best.settings`` (``tracevet.cleaning.clean_with_report``).
     assessment : Assessment
         The full assessment of ``cleaned``.
+    report : CleaningReport
+        What the cleaning applied (``report.settings``: ``mains: auto`` resolved); a queue
+        run records these settings.
     candidate_set_digest : str
         See :func:`candidate_set_digest`.
     windows_s : list of (start, end)
@@ -221,8 +255,9 @@ class Suggestion:
     ranked: list
     base: CandidateResult | None
     current: CandidateResult | None
-    cleaned: object
-    assessment: object
+    cleaned: Any
+    assessment: Any
+    report: Any
     candidate_set_digest: str
     windows_s: list
     reason: str
@@ -235,7 +270,12 @@ class Suggestion:
     @property
     def searched_on(self) -> str:
         """``the whole record`` or ``3 sampled windows (60 s of 86400 s)``."""
-        if len(self.windows_s) == 1 and self.best.scope == "whole record" and self.ranked and self.ranked[-1].scope == "whole record":
+        if (
+            len(self.windows_s) == 1
+            and self.best.scope == "whole record"
+            and self.ranked
+            and self.ranked[-1].scope == "whole record"
+        ):
             return "the whole record"
         total = sum(b - a for a, b in self.windows_s)
         return f"{len(self.windows_s)} sampled windows ({total:.0f} s)"

@@ -1,7 +1,7 @@
 """The suggestion search: clean and assess candidate settings, rank them, verify the winner.
 
-Every candidate is cleaned by :func:`tracevet.cleaning.clean`, the function
-``tracevet denoise`` runs, with nothing changed: a candidate's cleaning is
+Every candidate is cleaned by :func:`tracevet.cleaning.clean_with_report`, the
+function ``tracevet denoise`` runs, with nothing changed: a candidate's cleaning is
 exactly what ``denoise`` with the same settings gives for the same samples.
 The assessment is :func:`tracevet.assessment.assess` with the queue's or the
 default limits.
@@ -30,7 +30,7 @@ from __future__ import annotations
 import hashlib
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
-from typing import Callable
+from typing import Any, Callable
 
 import numpy as np
 
@@ -45,6 +45,7 @@ from tracevet.suggestion.result import (
     Suggestion,
     candidate_set_digest,
     explain,
+    cannot_beat,
     rank_key,
 )
 
@@ -132,7 +133,7 @@ class PeakCache:
     @staticmethod
     def _key(signal: np.ndarray, fs: float) -> tuple:
         data = np.ascontiguousarray(signal)
-        digest = hashlib.blake2b(data.view(np.uint8), digest_size=16).digest()
+        digest = hashlib.blake2b(data.view(np.uint8).data, digest_size=16).digest()
         return (data.shape[0], str(data.dtype), float(fs), digest)
 
     def put(self, signal: np.ndarray, fs: float, peaks: np.ndarray) -> None:
@@ -157,13 +158,16 @@ def _cancel_check(cancel) -> Callable[[], bool]:
 
 def _merge_flags(flag_lists: list[list]) -> list:
     """The worst of each (flag, channel) over windows; fail first."""
-    worst: dict[tuple[str, str], object] = {}
+    worst: dict[tuple[str, str], Any] = {}
     order = {"fail": 2, "warn": 1}
     for flags in flag_lists:
         for f in flags:
             key = (f.id, f.channel)
             old = worst.get(key)
-            if old is None or (order.get(f.severity, 0), f.value or 0.0) > (order.get(old.severity, 0), old.value or 0.0):
+            if old is None or (order.get(f.severity, 0), f.value or 0.0) > (
+                order.get(old.severity, 0),
+                old.value or 0.0,
+            ):
                 worst[key] = f
     return sorted(worst.values(), key=lambda f: (0 if f.severity == "fail" else 1, f.id, f.channel))
 
@@ -180,7 +184,7 @@ def _key_metrics(metric_dicts: list[dict]) -> dict:
     for name in metric_dicts[0]:
         if name.split("@")[0] not in KEY_METRICS:
             continue
-        values = [m.get(name) for m in metric_dicts if m.get(name) is not None]
+        values = [v for m in metric_dicts if (v := m.get(name)) is not None]
         out[name] = float(np.mean(values)) if values else None
     return out
 
@@ -188,7 +192,9 @@ def _key_metrics(metric_dicts: list[dict]) -> dict:
 class _Evaluator:
     """Cleans and assesses settings on the planned windows of one record."""
 
-    def __init__(self, recording: Recording, windows: list[Window], peaks: list[np.ndarray], cache: PeakCache, limits, base):
+    def __init__(
+        self, recording: Recording, windows: list[Window], peaks: list[np.ndarray], cache: PeakCache, limits, base
+    ):
         from tracevet.assessment import resolve_limits
 
         self.recording = recording
@@ -225,7 +231,9 @@ class _Evaluator:
         """Record a new result in evaluation order; keep the cleaned trace of the best few."""
         digest = outcome.settings.digest()
         if digest in self.done:
-            return self.known(outcome.settings, outcome.roles[0])
+            found = self.known(outcome.settings, outcome.roles[0])
+            assert found is not None  # its digest is in self.done
+            return found
         self.done[digest] = outcome
         self.order.append(outcome)
         if kept is not None:
@@ -234,27 +242,32 @@ class _Evaluator:
                 del self.kept[d]
         return outcome
 
-    def run(self, settings: CleaningSettings, role: str) -> tuple[CandidateResult, tuple | None]:
-        """Clean and assess ``settings`` on the windows: (result, (cleaned, assessment) for a whole-record search)."""
+    def run(
+        self, settings: CleaningSettings, role: str, bar: CandidateResult | None = None
+    ) -> tuple[CandidateResult, tuple | None]:
+        """Clean ``settings`` on the windows, estimate the noise removed and assess.
+
+        Returns (result, (cleaned, assessment) for a whole-record search). With
+        ``bar`` (the best so far, without flags), a candidate whose estimated
+        noise removed falls a whole :data:`~tracevet.suggestion.result.TIE_DB`
+        step below it cannot come first whatever its flags, and is not
+        assessed (``screened``).
+        """
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
         change = cand.describe_change(settings, self.base)
-        flag_lists, metric_dicts = [], []
         per_channel: list[list[noise_mod.NoiseEstimate]] = [[] for _ in range(self.recording.n_channels)]
-        kept = None
+        pairs = []
+        report = None
         try:
             for w in self.windows:
                 segment = self._segment(w.read_start, w.read_stop)
-                cleaned = clean(segment, settings)
+                cleaned, report = clean_with_report(segment, settings)
                 core_o = self._segment(w.start, w.stop)
                 lo = w.start - w.read_start
                 core_c = cleaned if self.whole else core_o.with_samples(cleaned.samples[lo : lo + (w.stop - w.start)])
-                result = assess(core_o, core_c, limits=self.limits, detector=self.cache)
-                if self.whole:
-                    kept = (core_c, result)
-                flag_lists.append(result.flags)
-                metric_dicts.append(result.metrics)
+                pairs.append((core_o, core_c))
                 for c in range(self.recording.n_channels):
                     p = self.peaks[c]
                     inside = p[(p >= w.start) & (p < w.stop)] - w.start
@@ -263,32 +276,44 @@ class _Evaluator:
                     )
         except InputError as exc:  # e.g. a window or record too short for a level
             return CandidateResult(settings, change, scope=self.scope, roles=(role,), error=exc.problem), None
-        channel_db = [noise_mod.pooled_removed_db(estimates) for estimates in per_channel]
-        channel_db = [v for v in channel_db if v is not None]
-        shapes = [s for s in (_shape_change(m) for m in metric_dicts) if s is not None]
+        channel_db = [v for estimates in per_channel if (v := noise_mod.pooled_removed_db(estimates)) is not None]
+        noise_db = float(np.mean(channel_db)) if channel_db else None
         outcome = CandidateResult(
             settings=settings,
             change=change,
-            flags=_merge_flags(flag_lists),
-            noise_removed_db=float(np.mean(channel_db)) if channel_db else None,
-            shape_change_percent=max(shapes) if shapes else None,
-            metrics=_key_metrics(metric_dicts),
+            noise_removed_db=noise_db,
             scope=self.scope,
             roles=(role,),
             n_changes=cand.count_changes(settings, self.base),
         )
+        if bar is not None and cannot_beat(outcome, bar):
+            outcome.screened = True
+            return outcome, None
+        flag_lists, metric_dicts, kept = [], [], None
+        for core_o, core_c in pairs:
+            result = assess(core_o, core_c, limits=self.limits, detector=self.cache)
+            if self.whole:
+                kept = (core_c, result, report)
+            flag_lists.append(result.flags)
+            metric_dicts.append(result.metrics)
+        shapes = [s for s in (_shape_change(m) for m in metric_dicts) if s is not None]
+        outcome.flags = _merge_flags(flag_lists)
+        outcome.shape_change_percent = max(shapes) if shapes else None
+        outcome.metrics = _key_metrics(metric_dicts)
         return outcome, kept
 
     def full(self, settings: CleaningSettings, roles: tuple, progress=None):
-        """Clean and assess ``settings`` on the whole record: (result, cleaned, assessment)."""
+        """Clean and assess ``settings`` on the whole record: (result, cleaned, assessment, cleaning report)."""
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
-        cleaned = clean(self.recording, settings, progress=progress)
+        cleaned, report = clean_with_report(self.recording, settings, progress=progress)
         result = assess(self.recording, cleaned, limits=self.limits, detector=self.cache)
         channel_db = []
         for c in range(self.recording.n_channels):
-            est = noise_mod.estimate(self.recording.samples[:, c], cleaned.samples[:, c], self.peaks[c], self.recording.fs)
+            est = noise_mod.estimate(
+                self.recording.samples[:, c], cleaned.samples[:, c], self.peaks[c], self.recording.fs
+            )
             if est.removed_db is not None:
                 channel_db.append(est.removed_db)
         outcome = CandidateResult(
@@ -302,7 +327,7 @@ class _Evaluator:
             roles=roles,
             n_changes=cand.count_changes(settings, self.base),
         )
-        return outcome, cleaned, result
+        return outcome, cleaned, result, report
 
 
 def suggest(
@@ -374,20 +399,26 @@ def suggest(
     expected = cand.upper_bound(recording.fs, base)
     pool = ThreadPoolExecutor(max_workers=max(1, int(threads)), thread_name_prefix="tracevet-suggest")
 
-    def evaluate_all(items: list[tuple[CleaningSettings, str]]) -> list[CandidateResult]:
+    def evaluate_all(
+        items: list[tuple[CleaningSettings, str]], bar: CandidateResult | None = None
+    ) -> list[CandidateResult]:
         """Evaluate settings (new ones on the pool), registered in the order given."""
         check()
+        if bar is not None and (bar.flags or bar.screened or bar.noise_removed_db is None):
+            bar = None
         futures = {}
         for settings, role in items:
             digest = settings.digest()
             if evaluator.known(settings, role) is None and digest not in futures:
-                futures[digest] = pool.submit(evaluator.run, settings, role)
-        results = []
+                futures[digest] = pool.submit(evaluator.run, settings, role, bar)
+        results: list[CandidateResult] = []
         try:
             for settings, role in items:
                 future = futures.pop(settings.digest(), None)
                 if future is None:
-                    results.append(evaluator.known(settings, role))
+                    found = evaluator.known(settings, role)
+                    assert found is not None  # evaluated before, in this call or an earlier one
+                    results.append(found)
                     continue
                 results.append(evaluator.register(*future.result()))
                 report(
@@ -405,7 +436,7 @@ def suggest(
         first = [(base, "base")] + ([(current, "current")] if current is not None else [])
         best = evaluate_all(first)[0]
         for _name, variants in cand.dimensions(recording.fs, base):
-            for result in evaluate_all([(s, "searched") for s in cand.unique(variants(best.settings))]):
+            for result in evaluate_all([(s, "searched") for s in cand.unique(variants(best.settings))], bar=best):
                 if result.error is None and rank_key(result) < rank_key(best):
                     best = result
     finally:
@@ -416,13 +447,13 @@ def suggest(
     current_result = evaluator.done.get(current.digest()) if current is not None else None
 
     # The winner on the whole record (and, if it does worse there, the next ones).
-    usable = [c for c in ranked if c.error is None]
+    usable = [c for c in ranked if c.error is None and not c.screened]
     if not usable:
         problem = ranked[0].error if ranked else "no candidate settings"
         raise InputError(recording.source, f"no candidate settings can clean this record ({problem})")
     if evaluator.whole:
         chosen = usable[0]
-        cleaned, assessment = evaluator.kept[chosen.settings.digest()]
+        cleaned, assessment, cleaning_report = evaluator.kept[chosen.settings.digest()]
         final = chosen
     else:
         finals = []
@@ -433,14 +464,15 @@ def suggest(
 
             def clean_progress(fraction: float, i=i) -> None:
                 check()
-                report(search_share + (1 - search_share) * (i + 0.8 * fraction) / len(tries), "cleaning the whole record")
+                report(
+                    search_share + (1 - search_share) * (i + 0.8 * fraction) / len(tries), "cleaning the whole record"
+                )
 
-            outcome, cleaned_i, assessment_i = evaluator.full(chosen.settings, chosen.roles, progress=clean_progress)
-            finals.append((outcome, cleaned_i, assessment_i))
-            if rank_key(outcome)[:4] <= rank_key(chosen)[:4]:
+            finals.append(evaluator.full(chosen.settings, chosen.roles, progress=clean_progress))
+            if rank_key(finals[-1][0])[:4] <= rank_key(chosen)[:4]:
                 break
-        final, cleaned, assessment = min(finals, key=lambda item: rank_key(item[0]))
-    others = [c for c in ranked if c.error is None and c.settings != final.settings]
+        final, cleaned, assessment, cleaning_report = min(finals, key=lambda item: rank_key(item[0]))
+    others = [c for c in ranked if c.error is None and not c.screened and c.settings != final.settings]
     windows_s = [(w.start / recording.fs, w.stop / recording.fs) for w in windows]
     report(1.0, "done")
     return Suggestion(
@@ -451,6 +483,7 @@ def suggest(
         current=current_result,
         cleaned=cleaned,
         assessment=assessment,
+        report=cleaning_report,
         candidate_set_digest=candidate_set_digest(evaluator.order, windows_s),
         windows_s=windows_s,
         reason=explain(final, ranked, current_result),

@@ -284,8 +284,12 @@ def _store(
         problem = check_result(task, result, versions, digest, meta)
         if problem is not None:
             return CleanOutcome(task.record_id, error=problem, retries=retries, worker=worker)
-        settings = CleaningSettings.from_dict(task.settings, source=f"{task.record_id}: settings")
+        # The run records the settings the worker applied (mains auto resolved on the record).
+        applied = getattr(result, "applied_settings", None) or task.settings
+        settings = CleaningSettings.from_dict(applied, source=f"{task.record_id}: settings")
         extra = {"worker": result.worker, "software": result.versions, "worker_seconds": round(result.seconds, 3)}
+        if getattr(result, "mains_detection", None):
+            extra["mains_detection"] = result.mains_detection
         run_id = queue.store_run(
             task.record_id,
             result.cleaned,

@@ -527,7 +527,7 @@ class Queue:
         requested = None
         if decision == "rerun" and requested_settings is not None:
             requested = self._settings_object(requested_settings, "requested settings")
-        body = {
+        body: dict[str, Any] = {
             "event": "decision",
             "record": record_id,
             "run": run_id,
@@ -543,6 +543,9 @@ class Queue:
             "flags": info.flags,
             "worst_severity": info.worst_severity,
         }
+        if info.suggestion is not None:  # a decision on a suggested run says so
+            body["suggested"] = True
+            body["candidate_set_digest"] = info.suggestion.get("candidate_set_digest")
         if requested is not None:
             body["requested_settings"] = requested.to_dict()
             body["requested_settings_digest"] = requested.digest()
@@ -622,7 +625,7 @@ class Queue:
         another reviewer holds the record, and the run records who asked.
         """
         from tracevet.assessment import assess
-        from tracevet.cleaning import clean
+        from tracevet.cleaning import clean_with_report
 
         record_id = check_record_id(record_id)
         if reviewer is not None:
@@ -631,9 +634,9 @@ class Queue:
                 claims_mod.check_holder(self.paths, record_id, reviewer, self.settings.claim_idle_minutes)
         settings = self._settings_object(settings, "settings")
         original = self.load_original(record_id)
-        cleaned = clean(original, settings, progress=progress)
+        cleaned, report = clean_with_report(original, settings, progress=progress)
         assessment = assess(original, cleaned, limits=self.settings.limits())
-        return self.store_run(record_id, cleaned, assessment, settings, made_by=reviewer)
+        return self.store_run(record_id, cleaned, assessment, report.settings, made_by=reviewer, report=report)
 
     def store_run(
         self,
@@ -645,9 +648,12 @@ class Queue:
         update_index: bool = True,
         batch_token: str | None = None,
         extra: dict | None = None,
+        report=None,
     ) -> str:
         """Write an already computed run into the record (whole or not at all); return its id.
 
+        ``settings`` are those applied (``report.settings`` of
+        ``tracevet.cleaning.clean_with_report``); ``report`` adds what ``mains: auto`` found.
         With ``batch_token``, storing is idempotent: if a run of this record
         already carries the token (run.json ``batch``), its id is returned and
         nothing is written, so a retried task never leaves two runs.
@@ -661,7 +667,9 @@ class Queue:
             extra = dict(extra or {}, batch=batch_token)
         folder = work_folder(self.paths, "run")
         try:
-            meta = build_run(folder, record_id, cleaned, assessment, settings, made_by=made_by, extra=extra)
+            meta = build_run(
+                folder, record_id, cleaned, assessment, settings, made_by=made_by, extra=extra, report=report
+            )
             run_id = commit_run(self.paths, record_id, folder, meta)
         except BaseException:
             _remove_tree(folder)

@@ -70,6 +70,14 @@ class RunInfo:
         SHA-256 of every data file of the run, by file name.
     made_by : str or None
         Reviewer who asked for the run (app re-runs), if any.
+    suggestion : dict or None
+        For a run made with suggested settings (``tracevet clean --suggest``, the
+        review app): ``candidate_set_digest``, ``candidates_evaluated``,
+        ``searched_on``, ``noise_removed_db``, ``reason``. None otherwise.
+    mains_detection : dict or None
+        With ``mains: auto`` requested: what the detector found (``frequency_hz``,
+        ``strength_dB``, ``amplitude_rms``, ``margin_db``...) and ``applied``
+        (``50``, ``60`` or ``off``, as in ``settings``). None otherwise.
     """
 
     run_id: str
@@ -83,6 +91,8 @@ class RunInfo:
     cleaned_file: str = "cleaned.npz"
     files: dict = field(default_factory=dict)
     made_by: str | None = None
+    suggestion: dict | None = None
+    mains_detection: dict | None = None
 
     @property
     def cleaned_sha256(self) -> str | None:
@@ -110,15 +120,17 @@ def build_run(
     settings=None,
     cleaned_source: Path | None = None,
     made_by: str | None = None,
+    report=None,
     extra: dict | None = None,
 ) -> dict:
     """Write a run's files into the empty ``folder``; return its run.json contents (without the id).
 
     Give ``settings`` (a ``CleaningSettings``) and ``cleaned`` for a tracevet
     run, or ``cleaned_source`` (a file cleaned elsewhere, copied byte for
-    byte) for an external one. ``extra`` adds keys to run.json (a batch's
-    token, the worker that cleaned it, its software versions); it never
-    replaces the keys written here.
+    byte) for an external one. ``report`` (a ``tracevet.cleaning.resolve.CleaningReport``)
+    adds what ``mains: auto`` found; ``settings`` must then be ``report.settings`` (applied).
+    ``extra`` adds keys to run.json (a batch's token, the worker that cleaned it, its software
+    versions); it never replaces the keys written here.
     """
     folder.mkdir(parents=True, exist_ok=True)
     if cleaned_source is not None:
@@ -160,6 +172,8 @@ def build_run(
         "host": socket.gethostname(),
         "tracevet_version": __version__,
     }
+    if report is not None and getattr(report, "mains", None) is not None:
+        meta["mains_detection"] = jsonable(dict(report.mains.to_dict(), applied=report.settings.mains))
     for key, value in (extra or {}).items():
         meta.setdefault(key, jsonable(value))
     if origin == "external":
@@ -275,6 +289,8 @@ def info_from_meta(meta: dict, settings: dict | None, run_id: str) -> RunInfo:
         cleaned_file=str(meta.get("cleaned", "cleaned.npz")),
         files=dict(meta.get("files") or {}),
         made_by=meta.get("made_by"),
+        suggestion=meta.get("suggested") if isinstance(meta.get("suggested"), dict) else None,
+        mains_detection=meta.get("mains_detection") if isinstance(meta.get("mains_detection"), dict) else None,
     )
 
 

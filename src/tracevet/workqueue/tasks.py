@@ -144,7 +144,11 @@ class RecordResult:
         The engine's output as it returned it (samples and metadata).
     assessment : Assessment or None
     settings_digest : str or None
-        Digest of the settings the worker cleaned with.
+        Digest of the settings the worker was asked to clean with (the task's).
+    applied_settings : dict or None
+        The settings it applied (``mains: auto`` resolved on the record); the run records these.
+    mains_detection : dict or None
+        What ``mains: auto`` found (``MainsDetection.to_dict()`` plus ``applied``).
     input_sha256 : str or None
         SHA-256 of the original bytes the worker cleaned.
     worker : dict
@@ -162,6 +166,8 @@ class RecordResult:
     cleaned: object = None
     assessment: object = None
     settings_digest: str | None = None
+    applied_settings: dict | None = None
+    mains_detection: dict | None = None
     input_sha256: str | None = None
     worker: dict = field(default_factory=dict)
     versions: dict = field(default_factory=dict)
@@ -225,7 +231,7 @@ def clean_record(task: RecordTask) -> RecordResult:
     picklable result, handed to :func:`tracevet.workqueue.backend.run_tasks`.
     """
     from tracevet.assessment import assess, limits_from_mapping
-    from tracevet.cleaning import CleaningSettings, clean
+    from tracevet.cleaning import CleaningSettings, clean_with_report
 
     started = time.monotonic()
     result = RecordResult(task.record_id, task.token, worker=worker_identity(), versions=software_versions())
@@ -244,9 +250,12 @@ def clean_record(task: RecordTask) -> RecordResult:
             return result
         settings = CleaningSettings.from_dict(task.settings, source=f"{task.record_id}: settings")
         limits = limits_from_mapping(task.flag_limits, "flag_limits") if task.flag_limits else None
-        result.cleaned = clean(original, settings, progress=_reporter(task.record_id))
+        result.cleaned, report = clean_with_report(original, settings, progress=_reporter(task.record_id))
         result.assessment = assess(original, result.cleaned, limits=limits)
         result.settings_digest = settings.digest()
+        result.applied_settings = report.settings.to_dict()
+        if report.mains is not None:
+            result.mains_detection = dict(report.mains.to_dict(), applied=report.settings.mains)
     except TracevetError as exc:
         result.cleaned = None
         result.error = exc.one_line()
