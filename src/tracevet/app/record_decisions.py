@@ -56,6 +56,7 @@ class DecisionActions:
         shown_run_id: str | None
         read_only: bool
         panel: str
+        suggestion_state: Any
 
         @property
         def holder_text(self) -> str: ...

@@ -18,6 +18,7 @@ from __future__ import annotations
 import threading
 import time
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 from rich.text import Text
 from textual.binding import Binding
@@ -25,6 +26,11 @@ from textual.widgets import Static
 
 from tracevet.app.display import inert_text
 from tracevet.errors import TracevetError
+
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
+    from tracevet.recording import Recording
+    from tracevet.workqueue import RecordSummary, RunInfo
 
 # Key of the record screen that takes the suggestion, and the one that shows the comparison.
 TAKE_KEY = "u"
@@ -54,7 +60,7 @@ class SuggestionState:
     status: str = "computing"
     fraction: float = 0.0
     message: str = "starting"
-    result: object = None
+    result: Any = None
     cancel: threading.Event = field(default_factory=threading.Event)
     show_compare: bool = False
     last_draw: float = 0.0
@@ -72,7 +78,7 @@ def flags_words(flags) -> str:
     fails, warns = _severity_counts(flags)
     if not fails and not warns:
         return "none"
-    ids = sorted({(f.get("id") if isinstance(f, dict) else f.id) for f in flags})
+    ids = sorted({str(f.get("id") if isinstance(f, dict) else f.id) for f in flags})
     parts = ([f"{fails} fail"] if fails else []) + ([f"{warns} warn"] if warns else [])
     return f"{', '.join(parts)} ({', '.join(ids)})"
 
@@ -163,7 +169,7 @@ def _rerun_screen_class():
                     widget = self.query_one(f"#set-{name}")
                 except Exception:
                     continue
-                widget.value = str(value)
+                widget.value = str(value)  # type: ignore[attr-defined]  # Select and Input both have it
             self.notify("form filled with the suggested settings; ctrl+r runs them")
 
     _RERUN_CLASS = SuggestedRerunScreen
@@ -174,6 +180,29 @@ class SuggestionActions:
     """The record screen's suggestion: background search, status line, comparison, take key."""
 
     suggestion_state: SuggestionState | None = None
+
+    if TYPE_CHECKING:  # state and methods of the record screen this class is mixed into
+        app: ReviewApp
+        notify: Any
+        query_one: Any
+        run_worker: Any
+        is_attached: bool
+        record_id: str
+        original: Recording | None
+        summary: RecordSummary | None
+        runs: list[RunInfo]
+        loaded: dict
+        current_run_id: str | None
+        previous_run_id: str | None
+        shown_run_id: str | None
+        read_only: bool
+
+        @property
+        def holder_text(self) -> str: ...
+
+        def show_run(self, run_id: str) -> None: ...
+
+        def refresh_summary(self) -> None: ...
 
     # ------------------------------------------------------------------ start
     def start_suggestion(self) -> None:
