@@ -1,15 +1,19 @@
 """Quality and cost of ``tracevet suggest`` (the suggestion engine).
 
-Run: ``PYTHONPATH=src:tests python benchmarks/bench_suggest.py [--quick] [--skip-day] [--skip-demo]``
+Run: ``PYTHONPATH=src:tests python benchmarks/bench_suggest.py [--quick] [--skip-day] [--skip-demo]
+[--set fidelity|noisy|both] [--count N]``
 
 1. **Demo queue** (``tracevet.demo``): each scenario record's intended cleaning (the
    demo's settings, or the boat pipeline for the pair) against the suggestion.
    Targets: no fail flag on the intended-bad records; same or better flags on
    the intended-good ones.
-2. **Labelled noisy set** (truth known): synthetic ECG (McSharry et al. 2003
+2. **Labelled noisy sets** (truth known): synthetic ECG (McSharry et al. 2003
    model, ``tests/fidelity_cases.py`` sources) at 250, 360 and 500 Hz with
    white, muscle, baseline-wander, mains and electrode-motion noise, and MCG
-   with sensor noise. SNR gain against the noise-free signal (both traces
+   with sensor noise; and the first ``--count`` records of issue 10's noisy
+   set (``benchmarks/eval_noisy_set.py``, report split: windows of the real
+   MIT-BIH 208 excerpt, McSharry ECG and MCG, 250-1000 Hz, 10-60 s, noise
+   mixtures at 0-15 dB input SNR). SNR gain against the noise-free signal (both traces
    referred to their mean): ``10 log10(|x - s|^2 / |y - s|^2)``. Targets: the
    suggestion's median gain at least the default run's; no record worse than
    its input; never more flags than the default run.
@@ -32,7 +36,7 @@ import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-sys.path[:0] = [str(ROOT / "src"), str(ROOT / "tests")]
+sys.path[:0] = [str(ROOT / "src"), str(ROOT / "tests"), str(ROOT / "benchmarks")]
 
 import numpy as np  # noqa: E402
 
@@ -97,8 +101,24 @@ def truth_gain(noisy: np.ndarray, cleaned: np.ndarray, truth: np.ndarray) -> flo
     return 10 * np.log10(np.sum((x - s) ** 2) / np.sum((y - s) ** 2))
 
 
+class _Source:
+    """A labelled record: truth, noisy version, rate, kind and units."""
+
+    def __init__(self, name, clean, noisy, fs, kind, units):
+        self.name, self.clean, self.noisy, self.fs, self.kind, self.units = name, clean, noisy, fs, kind, units
+
+
+def noisy_set_sources(count: int):
+    """The labelled noisy set of issue 10 (benchmarks/eval_noisy_set.py, ``report`` split)."""
+    import eval_noisy_set as ens
+
+    for index in range(count):
+        x, y, fs, kind, units, _peaks, desc = ens.make_record(index, "report")
+        yield _Source(f"{index:02d} {desc}", np.asarray(x, float), np.asarray(y, float), fs, kind, units)
+
+
 def labelled_sources(quick: bool):
-    """Sources with known truth."""
+    """Sources with known truth (tests/fidelity_cases.py)."""
     rates = (250.0, 500.0) if quick else (250.0, 360.0, 500.0)
     seeds = (1,) if quick else (1, 2)
     for fs in rates:
@@ -112,15 +132,17 @@ def labelled_sources(quick: bool):
         yield fc.mcg_source(500.0, seed, noise_pt=2.0, duration_s=30.0)
 
 
-def labelled_part(quick: bool) -> bool:
+def labelled_part(quick: bool, which: str = "fidelity", count: int = 30) -> bool:
     """SNR gains, flags against the default, and estimate-vs-truth ordering."""
-    print("## Labelled noisy set (truth known)\n")
+    title = "issue-10 noisy set, report split" if which == "noisy" else "fidelity-case sources"
+    print(f"## Labelled noisy set (truth known; {title})\n")
     print("| source | default gain dB | suggestion gain dB | default flags | suggestion flags | suggestion "
           "| pairs agree | tau |")
     print("|---|---:|---:|---|---|---|---:|---:|")
     d_gains, s_gains, worse, more_flags, agree, compared, taus = [], [], 0, 0, 0, 0, []
     n = 0
-    for src in labelled_sources(quick):
+    sources = noisy_set_sources(count) if which == "noisy" else labelled_sources(quick)
+    for src in sources:
         rec = Recording(src.noisy.reshape(-1, 1), src.fs, ("c",), units=src.units, kind=src.kind, source=src.name)
         default_clean = clean(rec, DEFAULT_SETTINGS)
         default_flags = assess(rec, default_clean).flags
@@ -200,12 +222,18 @@ def main() -> int:
     parser.add_argument("--skip-day", action="store_true", help="no 24-hour timing")
     parser.add_argument("--skip-demo", action="store_true")
     parser.add_argument("--only-time", action="store_true")
+    parser.add_argument("--set", dest="which", choices=("fidelity", "noisy", "both"), default="both",
+                        help="labelled set: tests/fidelity_cases.py sources, issue 10's noisy set, or both")
+    parser.add_argument("--count", type=int, default=30, help="records of the noisy set (default 30)")
     args = parser.parse_args()
     results = {}
     if not args.only_time:
         if not args.skip_demo:
             results["demo"] = demo_part()
-        results["labelled"] = labelled_part(args.quick)
+        if args.which in ("fidelity", "both"):
+            results["labelled (fidelity sources)"] = labelled_part(args.quick, "fidelity")
+        if args.which in ("noisy", "both"):
+            results["labelled (noisy set)"] = labelled_part(args.quick, "noisy", args.count)
     results["time"] = timing_part(args.skip_day)
     print("targets:", ", ".join(f"{k} {'met' if v else 'MISSED'}" for k, v in results.items()))
     return 0 if all(results.values()) else 1

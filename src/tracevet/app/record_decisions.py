@@ -170,7 +170,7 @@ class DecisionActions:
 
     def action_rerun(self) -> None:
         """Open the re-run form pre-filled with the shown run's settings."""
-        from tracevet.app.rerun_screen import RerunScreen
+        from tracevet.app.suggestion_view import rerun_form
 
         if self.read_only:
             self.notify(f"read-only: {self.holder_text}", severity="warning")
@@ -189,4 +189,4 @@ class DecisionActions:
                 self.show_run(str(new_run_id))
 
         source_run = run.run_id if run is not None else ""
-        self.app.push_screen(RerunScreen(self.record_id, settings, source_run), finished)
+        self.app.push_screen(rerun_form(self.record_id, settings, source_run, self.suggestion_state), finished)

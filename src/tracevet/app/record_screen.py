@@ -24,6 +24,7 @@ from tracevet.app.plots import (
     render_trace_plots,
 )
 from tracevet.app.record_decisions import DECISION_ACTIONS, DecisionActions
+from tracevet.app.suggestion_view import SUGGESTION_BINDINGS, SUGGESTION_KEY_HELP, SuggestionActions
 from tracevet.errors import TracevetError
 from tracevet.recording import Recording
 from tracevet.workqueue import Claim, ClaimedByOther, RecordSummary, RunInfo
@@ -46,7 +47,7 @@ PLOT_LABELS = {
 READ_ONLY_NAME_CHARS = 12
 
 
-class RecordScreen(DecisionActions, Screen):
+class RecordScreen(DecisionActions, SuggestionActions, Screen):
     """One record: look, compare runs, decide."""
 
     if TYPE_CHECKING:
@@ -73,8 +74,10 @@ class RecordScreen(DecisionActions, Screen):
         Binding("s", "decide('rerun')", "Send back", show=False),
         Binding("r", "rerun", "Re-run"),
         Binding("escape,q", "back", "Back", key_display="esc"),
+        *SUGGESTION_BINDINGS,
     ]
     KEY_HELP = {
+        **SUGGESTION_KEY_HELP,
         "pan(-0.5)": "pan back by half a window",
         "pan(0.5)": "pan forward by half a window",
         "zoom(0.5)": "zoom in (half the window)",
@@ -282,6 +285,7 @@ class RecordScreen(DecisionActions, Screen):
         self.update_decision_line()
         self.refresh_bindings()
         self.redraw()
+        self.start_suggestion()
 
     @property
     def shown_run(self) -> queue_view.RunData | None:
