@@ -15,16 +15,24 @@ reviewer still accepts, rejects or sends back with their own key press.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING, Any
+
 import threading
 import time
 from dataclasses import dataclass, field
 
 from rich.text import Text
 from textual.binding import Binding
-from textual.widgets import Static
+from textual.widgets import Input, Select, Static
 
 from tracevet.app.display import inert_text
 from tracevet.errors import TracevetError
+
+if TYPE_CHECKING:
+    from tracevet.app.app import ReviewApp
+    from tracevet.recording import Recording
+    from tracevet.suggestion.result import Suggestion
+    from tracevet.workqueue import RecordSummary, RunInfo
 
 # Key of the record screen that takes the suggestion, and the one that shows the comparison.
 TAKE_KEY = "u"
@@ -54,7 +62,7 @@ class SuggestionState:
     status: str = "computing"
     fraction: float = 0.0
     message: str = "starting"
-    result: object = None
+    result: Suggestion | None = None
     cancel: threading.Event = field(default_factory=threading.Event)
     show_compare: bool = False
     last_draw: float = 0.0
@@ -72,7 +80,7 @@ def flags_words(flags) -> str:
     fails, warns = _severity_counts(flags)
     if not fails and not warns:
         return "none"
-    ids = sorted({(f.get("id") if isinstance(f, dict) else f.id) for f in flags})
+    ids = sorted({str(f.get("id") if isinstance(f, dict) else f.id) for f in flags})
     parts = ([f"{fails} fail"] if fails else []) + ([f"{warns} warn"] if warns else [])
     return f"{', '.join(parts)} ({', '.join(ids)})"
 
@@ -162,7 +170,8 @@ def _rerun_screen_class():
                     widget = self.query_one(f"#set-{name}")
                 except Exception:
                     continue
-                widget.value = str(value)
+                if isinstance(widget, (Input, Select)):  # the form's fields
+                    widget.value = str(value)
             self.notify("form filled with the suggested settings; ctrl+r runs them")
 
     _RERUN_CLASS = SuggestedRerunScreen
@@ -173,6 +182,28 @@ class SuggestionActions:
     """The record screen's suggestion: background search, status line, comparison, take key."""
 
     suggestion_state: SuggestionState | None = None
+
+    if TYPE_CHECKING:  # state and methods of the record screen this class is mixed into
+        app: ReviewApp
+        notify: Any
+        query_one: Any
+        run_worker: Any
+        is_attached: bool
+        record_id: str
+        summary: RecordSummary | None
+        original: Recording | None
+        runs: list[RunInfo]
+        current_run_id: str | None
+        previous_run_id: str | None
+        shown_run_id: str | None
+        read_only: bool
+
+        @property
+        def holder_text(self) -> str: ...
+
+        def show_run(self, run_id: str) -> None: ...
+
+        def refresh_summary(self) -> None: ...
 
     # ------------------------------------------------------------------ start
     def start_suggestion(self) -> None:
@@ -285,7 +316,10 @@ class SuggestionActions:
             return Text.assemble(("suggestion: ", "bold"), inert_text(state.message, 120))
         if state.status == "taken":
             return Text.assemble(("suggestion ", "bold"), f"taken as {state.message}; decide on it as on any run")
-        best = state.result.best
+        result = state.result
+        if result is None:  # computing finished without a result: nothing to show yet
+            return Text("")
+        best = result.best
         line = Text.assemble(
             ("suggestion ready: ", "bold"),
             f"{flags_words(best.flags)}; ",
@@ -303,8 +337,8 @@ class SuggestionActions:
             else:
                 flags, metrics = list(info.flags if info else []), {}
             line.append("\n")
-            line.append_text(compare_table(f"current {state.for_run}", flags, metrics, state.result))
-            line.append_text(Text("  " + state.result.reason, style="italic"))
+            line.append_text(compare_table(f"current {state.for_run}", flags, metrics, result))
+            line.append_text(Text("  " + result.reason, style="italic"))
         return line
 
     def update_suggestion_line(self) -> None:
@@ -356,6 +390,8 @@ class SuggestionActions:
 
     def _store_suggestion(self, state: SuggestionState) -> None:
         result = state.result
+        if result is None:
+            return
         try:
             run_id = self.app.queue.store_run(
                 self.record_id, result.cleaned, result.assessment, result.report.settings,
