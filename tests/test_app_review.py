@@ -18,6 +18,7 @@ from rich.cells import cell_len
 
 from tracevet.app.app import ReviewApp
 from tracevet.app.record_screen import RecordScreen
+from tracevet.app.rerun_screen import RerunScreen
 from tracevet.app.worklist_screen import WorklistScreen
 from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings
 from tracevet.recording import Recording, write_recording
@@ -142,7 +143,7 @@ async def test_review_session_writes_exactly_the_decisions_to_the_log(queue_dir)
         rerun = app.screen.record_id
         old_run = app.screen.shown_run_id
         await pilot.press("r")
-        await wait_for(pilot, lambda: type(app.screen).__name__ == "RerunScreen")
+        await wait_for(pilot, lambda: isinstance(app.screen, RerunScreen))  # or its form offering a suggestion
         await pilot.press("tab", "tab", "tab", "tab")  # transform -> wavelet -> extension -> level -> rule
         assert app.screen.focused.id == "set-rule"
         await pilot.press("enter", "s", "u", "r", "e", "enter")  # open the list, type to find "sure"
@@ -334,7 +335,7 @@ async def test_rerun_can_be_cancelled_and_leaves_nothing_behind(queue_dir):
         record_id = app.screen.record_id
         runs_before = [r.run_id for r in queue.runs(record_id)]
         await pilot.press("r")
-        await wait_for(pilot, lambda: type(app.screen).__name__ == "RerunScreen")
+        await wait_for(pilot, lambda: isinstance(app.screen, RerunScreen))  # or its form offering a suggestion
         await pilot.press("ctrl+r")
         await wait_for(pilot, lambda: app.screen.running)
         await pilot.press("escape")

@@ -20,7 +20,6 @@ from tracevet.workqueue import DecisionOverride, LastDecision
 
 if TYPE_CHECKING:
     from tracevet.app.app import ReviewApp
-    from tracevet.app.suggestion_view import SuggestionState
     from tracevet.workqueue import RecordSummary, RunInfo
 
 # Actions that change the queue; the record screen shows their keys disabled while read-only.
@@ -57,7 +56,7 @@ class DecisionActions:
         shown_run_id: str | None
         read_only: bool
         panel: str
-        suggestion_state: SuggestionState | None
+        suggestion_state: Any
 
         @property
         def holder_text(self) -> str: ...

@@ -15,15 +15,14 @@ reviewer still accepts, rejects or sends back with their own key press.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
-
 import threading
 import time
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 from rich.text import Text
 from textual.binding import Binding
-from textual.widgets import Input, Select, Static
+from textual.widgets import Static
 
 from tracevet.app.display import inert_text
 from tracevet.errors import TracevetError
@@ -31,7 +30,6 @@ from tracevet.errors import TracevetError
 if TYPE_CHECKING:
     from tracevet.app.app import ReviewApp
     from tracevet.recording import Recording
-    from tracevet.suggestion.result import Suggestion
     from tracevet.workqueue import RecordSummary, RunInfo
 
 # Key of the record screen that takes the suggestion, and the one that shows the comparison.
@@ -62,7 +60,7 @@ class SuggestionState:
     status: str = "computing"
     fraction: float = 0.0
     message: str = "starting"
-    result: Suggestion | None = None
+    result: Any = None
     cancel: threading.Event = field(default_factory=threading.Event)
     show_compare: bool = False
     last_draw: float = 0.0
@@ -170,8 +168,7 @@ def _rerun_screen_class():
                     widget = self.query_one(f"#set-{name}")
                 except Exception:
                     continue
-                if isinstance(widget, (Input, Select)):  # the form's fields
-                    widget.value = str(value)
+                widget.value = str(value)  # type: ignore[attr-defined]  # Select and Input both have it
             self.notify("form filled with the suggested settings; ctrl+r runs them")
 
     _RERUN_CLASS = SuggestedRerunScreen
@@ -190,9 +187,10 @@ class SuggestionActions:
         run_worker: Any
         is_attached: bool
         record_id: str
-        summary: RecordSummary | None
         original: Recording | None
+        summary: RecordSummary | None
         runs: list[RunInfo]
+        loaded: dict
         current_run_id: str | None
         previous_run_id: str | None
         shown_run_id: str | None
@@ -316,10 +314,7 @@ class SuggestionActions:
             return Text.assemble(("suggestion: ", "bold"), inert_text(state.message, 120))
         if state.status == "taken":
             return Text.assemble(("suggestion ", "bold"), f"taken as {state.message}; decide on it as on any run")
-        result = state.result
-        if result is None:  # computing finished without a result: nothing to show yet
-            return Text("")
-        best = result.best
+        best = state.result.best
         line = Text.assemble(
             ("suggestion ready: ", "bold"),
             f"{flags_words(best.flags)}; ",
@@ -337,8 +332,8 @@ class SuggestionActions:
             else:
                 flags, metrics = list(info.flags if info else []), {}
             line.append("\n")
-            line.append_text(compare_table(f"current {state.for_run}", flags, metrics, result))
-            line.append_text(Text("  " + result.reason, style="italic"))
+            line.append_text(compare_table(f"current {state.for_run}", flags, metrics, state.result))
+            line.append_text(Text("  " + state.result.reason, style="italic"))
         return line
 
     def update_suggestion_line(self) -> None:
@@ -390,8 +385,6 @@ class SuggestionActions:
 
     def _store_suggestion(self, state: SuggestionState) -> None:
         result = state.result
-        if result is None:
-            return
         try:
             run_id = self.app.queue.store_run(
                 self.record_id, result.cleaned, result.assessment, result.report.settings,

@@ -21,14 +21,17 @@ Cost is bounded:
 
 Work shared between candidates: the R peaks are found once on the original
 (the assessment always finds them on the original, so they are the same for
-every candidate), the filter designs are cached by the engine, and settings
-that repeat along the coordinate search are evaluated once.
+every candidate): for a long record, once per window for the search, and
+once on the whole record in a background thread while the windows are
+searched, for the final assessment. The filter designs are cached by the
+engine, and settings that repeat along the coordinate search are evaluated
+once.
 """
 
 from __future__ import annotations
 
 import hashlib
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, replace
 from typing import Any, Callable
 
@@ -193,13 +196,20 @@ class _Evaluator:
     """Cleans and assesses settings on the planned windows of one record."""
 
     def __init__(
-        self, recording: Recording, windows: list[Window], peaks: list[np.ndarray], cache: PeakCache, limits, base
+        self,
+        recording: Recording,
+        windows: list[Window],
+        window_peaks: list[list[np.ndarray]],
+        cache: PeakCache,
+        limits,
+        base,
     ):
         from tracevet.assessment import resolve_limits
 
         self.recording = recording
         self.windows = windows
-        self.peaks = peaks
+        self.window_peaks = window_peaks  # per window, per channel: R peaks in the core (core-relative)
+        self.peaks: list[np.ndarray] = window_peaks[0] if len(windows) == 1 else []  # whole record, per channel
         self.cache = cache
         self.base = base
         self.limits = resolve_limits(limits, recording.kind, recording.units)
@@ -209,11 +219,9 @@ class _Evaluator:
         self.order: list[CandidateResult] = []
         self.kept: dict[str, tuple] = {}  # whole-record scope: (cleaned, assessment) of the best few
         fs = recording.fs
-        for w in windows:  # hand the whole record's peaks to each window's core
+        for w, per_channel in zip(windows, window_peaks):  # the assessment of a core gets its peaks
             for c in range(recording.n_channels):
-                p = peaks[c]
-                inside = p[(p >= w.start) & (p < w.stop)] - w.start
-                cache.put(recording.samples[w.start : w.stop, c], fs, inside)
+                cache.put(recording.samples[w.start : w.stop, c], fs, per_channel[c])
 
     def _segment(self, a: int, b: int) -> Recording:
         if a == 0 and b == self.recording.n_samples:
@@ -261,7 +269,7 @@ class _Evaluator:
         pairs = []
         report = None
         try:
-            for w in self.windows:
+            for w, window_peaks in zip(self.windows, self.window_peaks):
                 segment = self._segment(w.read_start, w.read_stop)
                 cleaned, report = clean_with_report(segment, settings)
                 core_o = self._segment(w.start, w.stop)
@@ -269,10 +277,10 @@ class _Evaluator:
                 core_c = cleaned if self.whole else core_o.with_samples(cleaned.samples[lo : lo + (w.stop - w.start)])
                 pairs.append((core_o, core_c))
                 for c in range(self.recording.n_channels):
-                    p = self.peaks[c]
-                    inside = p[(p >= w.start) & (p < w.stop)] - w.start
                     per_channel[c].append(
-                        noise_mod.estimate(core_o.samples[:, c], core_c.samples[:, c], inside, self.recording.fs)
+                        noise_mod.estimate(
+                            core_o.samples[:, c], core_c.samples[:, c], window_peaks[c], self.recording.fs
+                        )
                     )
         except InputError as exc:  # e.g. a window or record too short for a level
             return CandidateResult(settings, change, scope=self.scope, roles=(role,), error=exc.problem), None
@@ -387,14 +395,36 @@ def suggest(
         if stopped():
             raise SuggestionCancelled()
 
-    cache = PeakCache(detector or detect_qrs)
+    detect = detector or detect_qrs
+    cache = PeakCache(detect)
     check()
     report(0.0, "finding beats")
-    peaks = [cache(recording.samples[:, c], recording.fs) for c in range(recording.n_channels)]
-    if all(p.size < 2 for p in peaks):
-        raise NoBeats(recording.source)
-    windows = plan_windows(recording.n_samples, recording.fs, flagged_stretches_s)
-    evaluator = _Evaluator(recording, windows, peaks, cache, limits, base)
+    fs, n_channels = recording.fs, recording.n_channels
+    windows = plan_windows(recording.n_samples, fs, flagged_stretches_s)
+    whole = len(windows) == 1
+    full_peaks: Future | None = None
+    if whole:
+        window_peaks = [[cache(recording.samples[:, c], fs) for c in range(n_channels)]]
+        if all(p.size < 2 for p in window_peaks[0]):
+            raise NoBeats(recording.source)
+    else:
+        # The whole record's beats (for the final assessment) are found in the background while
+        # the windows are searched with beats found in each window alone.
+        background = ThreadPoolExecutor(max_workers=1, thread_name_prefix="tracevet-beats")
+        full_peaks = background.submit(lambda: [cache(recording.samples[:, c], fs) for c in range(n_channels)])
+        background.shutdown(wait=False)  # the submitted search runs on; nothing else is queued
+        window_peaks = []
+        for w in windows:
+            per_channel = []
+            for c in range(n_channels):
+                p = np.asarray(detect(recording.samples[w.read_start : w.read_stop, c], fs), dtype=np.int64)
+                p = p + w.read_start
+                per_channel.append(p[(p >= w.start) & (p < w.stop)] - w.start)
+            window_peaks.append(per_channel)
+        if all(p.size < 2 for per_channel in window_peaks for p in per_channel):
+            if all(p.size < 2 for p in full_peaks.result()):
+                raise NoBeats(recording.source)
+    evaluator = _Evaluator(recording, windows, window_peaks, cache, limits, base)
     search_share = 0.95 if evaluator.whole else 0.5
     expected = cand.upper_bound(recording.fs, base)
     pool = ThreadPoolExecutor(max_workers=max(1, int(threads)), thread_name_prefix="tracevet-suggest")
@@ -451,6 +481,9 @@ def suggest(
     if not usable:
         problem = ranked[0].error if ranked else "no candidate settings"
         raise InputError(recording.source, f"no candidate settings can clean this record ({problem})")
+    if full_peaks is not None:
+        report(search_share, "finding the beats of the whole record")
+        evaluator.peaks = full_peaks.result()
     if evaluator.whole:
         chosen = usable[0]
         cleaned, assessment, cleaning_report = evaluator.kept[chosen.settings.digest()]
