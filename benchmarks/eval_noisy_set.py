@@ -10,7 +10,7 @@ what the figures in docs/cleaning.md come from. Every record is
 * a truth: a window of the real MIT-BIH record 208 excerpt (tests/data, mV = (adu - 1024) / 200,
   360 Hz native or resampled to 250/500/1000 Hz with ``scipy.signal.resample_poly``; its median
   removed), or McSharry-model ECG (mV) or MCG (pT) from :mod:`tracevet.synthetic` at 250-1000 Hz,
-  10-60 s, 50-120 bpm, some with ectopic beats;
+  10-60 s (real windows 10-30 s), 50-120 bpm, some with ectopic beats;
 * plus noise of one kind, scaled to an input SNR of 0, 5, 10 or 15 dB: ``muscle`` (band-limited
   EMG, sometimes bursty), ``mains`` (50 or 60 Hz with two harmonics, plus 2 % white noise),
   ``wander`` (0.1-0.4 Hz respiration-like drift and slow electrode drift, plus 2 % white noise),
@@ -55,6 +55,7 @@ from tracevet.recording import Recording
 
 DATA = Path(__file__).resolve().parents[1] / "tests" / "data" / "mitdb-208-excerpt.npz"
 SNRS = (0.0, 5.0, 10.0, 15.0)
+ARTEFACT_LEVEL_MV = 0.25
 NOISES = ("muscle", "mains", "wander", "mix", "mix+motion")
 
 CANDIDATES: dict[str, tuple[str, ...]] = {
@@ -75,8 +76,9 @@ def bare(x: np.ndarray, fs: float) -> np.ndarray:
 def spline_baseline(x: np.ndarray, fs: float) -> np.ndarray:
     """Reference baseline of a real record: cubic spline through the PR level before each detected QRS.
 
-    Knots at R - 85 ms with the median of R-110..R-60 ms (the isoelectric PR segment, common practice);
-    beats from the assessment's Pan-Tompkins detector; held constant beyond the first and last knot.
+    Knots at R - 85 ms with the median of R-110..R-60 ms (the isoelectric PR segment, common practice)
+    of every beat that is not premature (RR at least 0.8 of the median); beats from the assessment's
+    Pan-Tompkins detector; held constant beyond the first and last knot.
     An estimate independent of the cleaning's own (median) baseline.
     """
     from scipy.interpolate import CubicSpline
@@ -85,6 +87,10 @@ def spline_baseline(x: np.ndarray, fs: float) -> np.ndarray:
 
     peaks = np.asarray(detect_qrs(x, fs))
     a, b = int(0.110 * fs), int(0.060 * fs)
+    if peaks.size > 2:  # premature beats (208's PVCs): their pre-QRS window lies in the previous T wave
+        rr = np.diff(peaks)
+        keep = np.concatenate(([True], rr >= 0.8 * np.median(rr)))
+        peaks = peaks[keep]
     peaks = peaks[peaks - a >= 0]
     levels = np.array([np.median(x[p - a : p - b]) for p in peaks])
     knots = peaks - int(0.085 * fs)
@@ -100,16 +106,25 @@ def real_truth(rng: np.random.Generator, fs: float, seconds: float, split: str) 
 
     The excerpt carries its own wander and electrode artefacts (the median level moves by up to 4 mV
     within 30 s): kept in the truth, a cleaning that removes wander would be scored as adding noise.
-    The truth is the window minus :func:`spline_baseline`.
+    The truth is the window minus :func:`spline_baseline`. Windows where that reference loses the
+    baseline (a 1-s median of the truth beyond ARTEFACT_LEVEL_MV, or a 0.25-s median beyond three times
+    that: the electrode artefacts of the excerpt, where no truth is known) are drawn again.
     """
     adu = np.load(DATA)["ecg"].astype(np.float64)
     mv = (adu - 1024) / 200
     half = mv.size // 2
     part = mv[:half] if split == "tune" else mv[half:]
     n = int(seconds * 360)
-    start = int(rng.integers(0, part.size - n))
-    x = part[start : start + n]
-    x = x - spline_baseline(x, 360.0)
+    for _ in range(500):
+        start = int(rng.integers(0, part.size - n))
+        x = part[start : start + n]
+        x = x - spline_baseline(x, 360.0)
+        quarter = np.median(x[: x.size // 90 * 90].reshape(-1, 90), axis=1)
+        second = np.median(x[: x.size // 360 * 360].reshape(-1, 360), axis=1)
+        if np.max(np.abs(quarter)) <= 3 * ARTEFACT_LEVEL_MV and np.max(np.abs(second)) <= ARTEFACT_LEVEL_MV:
+            break
+    else:
+        raise RuntimeError("no window of the excerpt without electrode artefacts found")
     if fs != 360.0:
         x = sps.resample_poly(x, int(fs), 360)
     return x
@@ -122,7 +137,8 @@ def make_record(index: int, split: str):
     source = ("real", "ecg", "mcg")[index % 3]
     rates = [250.0, 360.0, 500.0, 1000.0] if source != "real" else [360.0, 360.0, 250.0, 500.0, 1000.0]
     fs = float(rng.choice(rates))
-    seconds = float(rng.choice([10.0, 20.0, 30.0, 60.0]))
+    # Real windows at most 30 s: longer ones of the excerpt all hold an electrode artefact.
+    seconds = float(rng.choice([10.0, 20.0, 30.0, 60.0] if source != "real" else [10.0, 20.0, 30.0]))
     noise_kind = NOISES[(index // 3) % len(NOISES)]
     snr = SNRS[(index // (3 * len(NOISES))) % len(SNRS)]
     hr = float(rng.uniform(50, 120))

@@ -82,7 +82,48 @@ def settle_samples(fs: float, lowest_hz: float) -> int:
     return int(math.ceil(8.0 * fs / lowest_hz))
 
 
-def zero_phase(x: np.ndarray, sos: np.ndarray, fs: float, lowest_hz: float, ends: str = "baseline") -> np.ndarray:
+def line_padded(x: np.ndarray, fs: float, padlen: int, line_hz: tuple[float, ...]) -> np.ndarray:
+    """``x`` extended by ``padlen`` samples at both ends, the mains lines continued in phase.
+
+    Near each end the lines at ``line_hz`` are fitted by least squares (a cosine and a sine per
+    line, over ``max(2 s, padlen + 1)`` samples) and continued into the extension; the rest is
+    extended by odd extension about its end sample. A notch then meets a steady line where the
+    record starts and ends, instead of a line that starts abruptly (which leaves it ringing with
+    the line for about 1 / (pi x bandwidth) s, and the ends keep their hum).
+    """
+    n = x.shape[0]
+    span = min(n, max(int(2 * fs), padlen + 1))
+    out = np.empty(n + 2 * padlen, dtype=np.float64)
+    out[padlen : padlen + n] = x
+    w = 2 * np.pi * np.asarray(line_hz, dtype=np.float64)[None, :] / fs
+    for side in ("left", "right"):
+        seg = np.asarray(x[:span] if side == "left" else x[n - span :], dtype=np.float64)
+        t_in = np.arange(span, dtype=np.float64)[:, None]
+        basis = np.hstack([np.cos(w * t_in), np.sin(w * t_in), np.ones((span, 1))])
+        coef, *_ = np.linalg.lstsq(basis, seg, rcond=None)
+        k = len(line_hz)
+        if side == "left":
+            t_out = np.arange(-padlen, 0, dtype=np.float64)[:, None]
+        else:
+            t_out = np.arange(span, span + padlen, dtype=np.float64)[:, None]
+        lines_in = np.hstack([np.cos(w * t_in), np.sin(w * t_in)]) @ coef[: 2 * k]
+        lines_out = np.hstack([np.cos(w * t_out), np.sin(w * t_out)]) @ coef[: 2 * k]
+        rest = seg - lines_in
+        if side == "left":
+            out[:padlen] = lines_out + (2.0 * rest[0] - rest[padlen:0:-1])
+        else:
+            out[padlen + n :] = lines_out + (2.0 * rest[-1] - rest[-2 : -padlen - 2 : -1])
+    return out
+
+
+def zero_phase(
+    x: np.ndarray,
+    sos: np.ndarray,
+    fs: float,
+    lowest_hz: float,
+    ends: str = "baseline",
+    line_hz: tuple[float, ...] = (),
+) -> np.ndarray:
     """Apply ``sos`` forward and backward (``scipy.signal.sosfiltfilt``) without inventing end transients.
 
     The ends are extended over up to one period of the lowest corner frequency.
@@ -91,9 +132,8 @@ def zero_phase(x: np.ndarray, sos: np.ndarray, fs: float, lowest_hz: float, ends
     extension, the rest mirrored), not about the end sample, so a record that
     starts or ends inside a wave is not pulled towards that wave's height for
     seconds. ``ends='odd'`` (for notches): odd extension about the end sample,
-    continuous in value and slope, so a mains line runs on into the extension
-    (a notch passes the slow offset that odd extension adds). Returns an array of
-    ``x``'s dtype.
+    continuous in value and slope. With ``line_hz`` (notches): the lines are
+    continued in phase (:func:`line_padded`). Returns an array of ``x``'s dtype.
     """
     n = x.shape[0]
     padlen = min(n - 1, int(math.ceil(fs / lowest_hz)))
@@ -101,7 +141,10 @@ def zero_phase(x: np.ndarray, sos: np.ndarray, fs: float, lowest_hz: float, ends
         return signal.sosfiltfilt(sos, x, padlen=0).astype(x.dtype, copy=False)
     if ends == "odd":
         return signal.sosfiltfilt(sos, x, padtype="odd", padlen=padlen).astype(x.dtype, copy=False)
-    padded = baseline.end_padded(x, fs, padlen)
+    if line_hz:
+        padded = line_padded(x, fs, padlen, line_hz)
+    else:
+        padded = baseline.end_padded(x, fs, padlen)
     y = signal.sosfiltfilt(sos, padded, padlen=0)
     return y[padlen : padlen + n].astype(x.dtype, copy=False)
 
@@ -122,12 +165,13 @@ class Stage:
     lowest_hz: float
     overlap: int
     ends: str = "baseline"
+    line_hz: tuple[float, ...] = ()
 
     def apply(self, segment: np.ndarray, fs: float) -> np.ndarray:
         """The stage's output for ``segment`` (a new array of its dtype)."""
         if self.kind == "median" or self.sos is None:
             return baseline.remove(segment, fs)
-        return zero_phase(segment, self.sos, fs, self.lowest_hz, self.ends)
+        return zero_phase(segment, self.sos, fs, self.lowest_hz, self.ends, self.line_hz)
 
 
 def mains_frequencies(
@@ -174,5 +218,6 @@ def _stage_filters(fs: float, baseline_method: str, cutoff_hz: float, mains: str
                 f"{mains} cannot be notched at {fs:g} Hz: every multiple of {mains} Hz lies at or above the Nyquist "
                 f"frequency ({fs / 2:g} Hz) less the notch bandwidth; use mains=off (or auto)",
             )
-        stages.append(Stage("iir", sos, MAINS_BANDWIDTH_HZ, settle_samples(fs, MAINS_BANDWIDTH_HZ), "odd"))
+        lines = tuple(mains_frequencies(fs, float(mains), harmonics))
+        stages.append(Stage("iir", sos, MAINS_BANDWIDTH_HZ, settle_samples(fs, MAINS_BANDWIDTH_HZ), "lines", lines))
     return tuple(stages)

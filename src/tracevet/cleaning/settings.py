@@ -89,7 +89,7 @@ class CleaningSettings:
     level: int | str = "auto"
     rule: str = "hybrid"
     threshold_mode: str = "garrote"
-    noise_estimate: str = "finest"
+    noise_estimate: str = "per_level"
     baseline: str = "median"
     baseline_cutoff_hz: float = 0.05
     mains: str = "auto"
