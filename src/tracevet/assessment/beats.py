@@ -51,6 +51,9 @@ class BeatWindows:
         after alignment on the original template.
     original, cleaned, removed : numpy.ndarray
         ``(n_used, pre + post + 1)`` windows (float64).
+    offset : int
+        Median shift (samples) from a detected fiducial to its aligned
+        position; the beat-by-beat measures cut every beat at ``peak + offset``.
     """
 
     fs: float
@@ -63,6 +66,7 @@ class BeatWindows:
     original: np.ndarray
     cleaned: np.ndarray
     removed: np.ndarray
+    offset: int = 0
 
     @property
     def n_used(self) -> int:
@@ -228,12 +232,14 @@ def build_windows(original: np.ndarray, cleaned: np.ndarray, peaks: np.ndarray, 
         pick = np.linspace(0, dominant.size - 1, most).round().astype(np.int64)
         dominant = dominant[pick]
     aligned = align_to_template(original, dominant, half, max_lag, fs)
+    offset = int(np.median(aligned - dominant))
     aligned = aligned[(aligned >= pre) & (aligned < n_samples - post)]
     if aligned.size < 2:
         return None
     x = cut_windows(original, aligned, pre, post).astype(np.float64)
     y = cut_windows(cleaned, aligned, pre, post).astype(np.float64)
     return BeatWindows(
+        offset=offset,
         fs=fs,
         pre=pre,
         post=post,
@@ -263,3 +269,42 @@ def median_standard_error(values: np.ndarray, axis: int = 0) -> np.ndarray:
     med = np.median(values, axis=axis, keepdims=True)
     mad = np.median(np.abs(values - med), axis=axis)
     return MEDIAN_SE_FACTOR * MAD_TO_SD * mad / np.sqrt(max(n, 1))
+
+
+def windows_at(
+    original: np.ndarray,
+    cleaned: np.ndarray,
+    centres: np.ndarray,
+    like: BeatWindows,
+    align: bool = False,
+    most_beats: int = MAX_TEMPLATE_BEATS,
+) -> BeatWindows | None:
+    """Beat windows of ``original`` and ``cleaned`` at ``centres``, shaped like ``like`` (same rate and bounds).
+
+    At most ``most_beats`` centres are used, spread evenly. With
+    ``align`` the centres are first aligned on their own median QRS (as
+    :func:`build_windows` does for the dominant beats). Returns ``None``
+    when fewer than two whole windows remain.
+    """
+    fs, pre, post = like.fs, like.pre, like.post
+    n_samples = original.size
+    centres = np.asarray(centres, dtype=np.int64)
+    most = max(50, min(most_beats, MAX_WINDOW_VALUES // (pre + post + 1)))
+    if centres.size > most:
+        centres = centres[np.linspace(0, centres.size - 1, most).round().astype(np.int64)]
+    offset = 0
+    if align:
+        max_lag = max(1, int(round(0.04 * fs)))
+        half = max(2, int(round(0.06 * fs)))
+        reach = half + 2 * max_lag + int(round(0.01 * fs)) + 1
+        inside = centres[(centres >= reach) & (centres < n_samples - reach)]
+        if inside.size >= 2:
+            aligned = align_to_template(original, inside, half, max_lag, fs)
+            offset = int(np.median(aligned - inside))
+            centres = aligned
+    centres = centres[(centres >= pre) & (centres < n_samples - post)]
+    if centres.size < 2:
+        return None
+    x = cut_windows(original, centres, pre, post).astype(np.float64)
+    y = cut_windows(cleaned, centres, pre, post).astype(np.float64)
+    return BeatWindows(fs, pre, post, like.rr_s, like.peaks, like.labels, centres, x, y, x - y, offset)

@@ -7,12 +7,19 @@ from typing import Callable, Mapping
 
 import numpy as np
 
-from tracevet.assessment.beats import build_windows
-from tracevet.assessment.flags import Flag, evaluate, merge_stretches, no_beats_flag
+from tracevet.assessment.beats import build_windows, windows_at
+from tracevet.assessment.flags import Flag, evaluate, grade, merge_stretches, no_beats_flag
 from tracevet.assessment.limits import Limits, LimitSpec, default_limits, limits_from_mapping
 from tracevet.assessment.result import Assessment, ChannelBeats
 from tracevet.assessment.shape_measures import measure_templates
 from tracevet.assessment.signal_checks import clipped_runs, edge_deviation, signal_comparison
+from tracevet.assessment.stretches import (
+    STRETCH_BEATS,
+    assess_group,
+    baseline_excursions,
+    excursion_flag,
+    gaps,
+)
 from tracevet.errors import InputError
 from tracevet.recording.model import Recording
 
@@ -43,6 +50,12 @@ METRIC_NAMES = (
     "edge_deviation",
     "signal_prdn_percent",
     "removed_rms",
+    "beats_measured",
+    "stretches_flagged",
+    "worst_stretch_r_amplitude_ratio",
+    "worst_stretch_st_change",
+    "baseline_excursion",
+    "unmeasured_s",
 )
 
 Detector = Callable[[np.ndarray, float], np.ndarray]
@@ -86,34 +99,6 @@ def resolve_limits(limits, kind: str, units: str | None) -> Limits:
     if all(isinstance(v, LimitSpec) for v in limits.values()):
         return base.with_overrides(limits)
     return base.with_overrides(limits_from_mapping(limits, "flag_limits"))
-
-
-_REGION_SPAN = {
-    "r-peak-change": "qrs",
-    "qrs-widening": "qrs",
-    "beat-timing-shift": "qrs",
-    "ringing": "qrs",
-    "st-level-change": "after",
-    "t-wave-change": "after",
-    "p-wave-change": "before",
-    "removed-beat-structure": "beat",
-    "beat-shape-change": "beat",
-}
-
-
-def _regions(flags: list[Flag], peaks_s: np.ndarray, pre_s: float, post_s: float, extra: dict) -> tuple:
-    rows: list[tuple[float, float, str]] = []
-    for flag in flags:
-        span = _REGION_SPAN.get(flag.id)
-        if span is not None and peaks_s.size:
-            lo, hi = {"qrs": (-0.1, 0.1), "after": (0.0, post_s), "before": (-pre_s, 0.0), "beat": (-pre_s, post_s)}[
-                span
-            ]
-            rows.extend(zip((peaks_s + lo).tolist(), (peaks_s + hi).tolist(), [flag.id] * peaks_s.size))
-        for start, end in extra.get(flag.id, ()):
-            rows.append((float(start), float(end), flag.id))
-    rows.sort(key=lambda r: (r[0], r[1], r[2]))
-    return tuple(rows)
 
 
 def beats_within(where, peaks_s: np.ndarray, pre_s: float, post_s: float) -> int:
@@ -200,7 +185,7 @@ def assess_channel(
         flags = _locate(flags, duration, extra_regions, peaks / fs, 0.0, 0.0, int(peaks.size))
         empty = np.empty(0)
         labels = np.full(peaks.size, -1, dtype=np.int8)
-        regions = _regions(flags, empty, 0.0, 0.0, extra_regions)
+        regions = _stretch_regions(flags, extra_regions, {}, duration)
         return metrics, flags, ChannelBeats(channel, peaks, labels, empty, empty, empty, empty, regions)
 
     measures = measure_templates(windows)
@@ -211,9 +196,68 @@ def assess_channel(
     metrics["other_beat_count"] = float(np.sum(labels == 1))
     metrics["heart_rate_bpm"] = 60.0 / windows.rr_s if windows.rr_s > 0 else None
     flags += evaluate(channel, metrics, allowance, limits)
+    fs_pre, fs_post = windows.pre / fs, windows.post / fs
+
+    # Beat by beat and stretch by stretch, every group with enough beats.
+    groups = [assess_group(original, cleaned, windows.peaks[labels == 0] + windows.offset, windows, measures, limits,
+                           channel)]
+    others = windows.peaks[labels == 1]
+    if others.size >= 2 * STRETCH_BEATS:
+        other_windows = windows_at(original, cleaned, others, windows, align=True)
+        if other_windows is not None:
+            other_measures = measure_templates(other_windows)
+            groups.append(assess_group(original, cleaned, others + other_windows.offset, other_windows,
+                                       other_measures, limits, channel))
+    measured = sum(g.measured for g in groups)
+    metrics["beats_measured"] = float(measured)
+    local: dict = {}
+    stretch_flags: dict = {}
+    for group in groups:
+        for item in group.stretches:
+            stretch_flags.setdefault(item.flag.id, []).append(item)
+        for key, value in group.worst_metrics.items():
+            metrics[f"worst_stretch_{key}"] = value
+    metrics["stretches_flagged"] = float(len({(i.start_s, i.end_s) for items in stretch_flags.values() for i in items}))
+    flags = _combine(flags, stretch_flags, measured, local, windows.rr_s)
+
+    # Levels moved by the cleaning (level shifts, start-up swoops), and pauses.
+    r_amp = metrics.get("r_amplitude")
+    if limits.absolute:
+        to_unit, amp_unit = limits.mv_per_unit, "mV"
+    else:
+        to_unit, amp_unit = (1.0 / r_amp if r_amp else None), "of R"
+    spec = limits.spec("baseline-excursion")
+    warn = spec.warn if limits.absolute else spec.warn_relative
+    if to_unit is not None:
+        lowest = warn if warn is not None else (spec.fail if limits.absolute else spec.fail_relative)
+        exc = baseline_excursions(original, cleaned, windows.peaks + windows.offset, labels, fs, windows.pre,
+                                  windows.post, measures.fiducials.iso, to_unit, lowest)
+        metrics["baseline_excursion"] = exc.value
+        flag = excursion_flag(channel, exc, limits, amp_unit)
+        if flag is not None:
+            where, more = merge_stretches([a for a, _ in exc.spans], [b for _, b in exc.spans], join_s=windows.rr_s)
+            local[flag.id] = (where, more, exc.affected, exc.measured)
+            extra_regions[flag.id] = exc.spans
+            flags.append(flag)
+    holes = gaps(windows.peaks, fs, original.size, windows.pre, windows.post)
+    metrics["unmeasured_s"] = float(sum(b - a for a, b in holes))
+    gap_spec = limits.spec("beats-missing")
+    if holes and gap_spec.enabled:
+        longest = max(b - a for a, b in holes)
+        severity, applied = grade(longest, gap_spec.warn, gap_spec.fail)
+        if severity is not None:
+            where, more = merge_stretches([a for a, _ in holes], [b for _, b in holes])
+            flags.append(Flag(
+                "beats-missing", severity,
+                f"channel {channel}: no measurable beats for {metrics['unmeasured_s']:.1f} s in {len(holes)} "
+                f"stretch(es) (the longest {longest:.1f} s); the shape there is not assessed (limit {applied:g} s)",
+                longest, applied, gap_spec.source, channel))
+            local["beats-missing"] = (where, more, 0, int(windows.peaks.size))
+            extra_regions["beats-missing"] = holes
+
     peaks_s = windows.peaks[labels == 0] / fs
-    flags = _locate(flags, duration, extra_regions, peaks_s, windows.pre / fs, windows.post / fs, int(peaks_s.size))
-    regions = _regions(flags, peaks_s, windows.pre / fs, windows.post / fs, extra_regions)
+    flags = _locate(flags, duration, extra_regions, peaks_s, fs_pre, fs_post, measured or int(peaks_s.size), local)
+    regions = _stretch_regions(flags, extra_regions, stretch_flags, duration)
     beats = ChannelBeats(
         channel=channel,
         r_peaks=windows.peaks,
@@ -225,6 +269,62 @@ def assess_channel(
         regions=regions,
     )
     return metrics, flags, beats
+
+
+_SEVERITY_RANK = {"warn": 1, "fail": 2}
+
+
+def _combine(flags: list[Flag], stretch_flags: dict, measured: int, local: dict, join_s: float = 0.0) -> list[Flag]:
+    """Merge the whole-record template flags with the flags confirmed on stretches.
+
+    For each flag id: the worse severity of the two; the stretches as
+    ``where`` when any stretch was confirmed (the whole record otherwise).
+    The message and value are those of the worst stretch, unless the
+    template flag is at least as severe and the stretches hold most beats
+    (then the whole-record reading speaks for the record). Fills ``local``
+    with ``flag_id -> (where, more, beats_affected, beats_measured)``.
+    """
+    by_id = {flag.id: flag for flag in flags}
+    out = [flag for flag in flags if flag.id not in stretch_flags]
+    for flag_id, items in stretch_flags.items():
+        worst = max(items, key=lambda i: (_SEVERITY_RANK[i.flag.severity], abs(i.flag.value or 0.0)))
+        affected = sum(i.beats for i in items)
+        spans = sorted({(i.start_s, i.end_s) for i in items})
+        where, more = merge_stretches([a for a, _ in spans], [b for _, b in spans], join_s=join_s)
+        template = by_id.get(flag_id)
+        count = len(spans)
+        if template is not None and (
+            _SEVERITY_RANK[template.severity] >= _SEVERITY_RANK[worst.flag.severity] and affected >= 0.5 * measured
+        ):
+            chosen = template
+        else:
+            chosen = replace(
+                worst.flag,
+                message=(
+                    f"{worst.flag.message}; worst of {count} stretch(es), at {worst.start_s:.1f}-{worst.end_s:.1f} s"
+                ),
+            )
+            if template is not None and _SEVERITY_RANK[template.severity] > _SEVERITY_RANK[chosen.severity]:
+                chosen = replace(chosen, severity=template.severity)
+        out.append(chosen)
+        local[flag_id] = (where, more, affected, measured)
+    return out
+
+
+def _stretch_regions(flags: list[Flag], extra: dict, stretch_flags: dict, duration: float) -> tuple:
+    """``(start_s, end_s, flag_id)`` of every flagged stretch (uncapped), sorted, for display."""
+    rows: list[tuple[float, float, str]] = []
+    for flag in flags:
+        if flag.id in stretch_flags:
+            spans = {(i.start_s, i.end_s) for i in stretch_flags[flag.id]}
+        elif flag.id in extra:
+            spans = set(extra[flag.id])
+        else:
+            spans = {(0.0, duration)}
+        where, _ = merge_stretches([a for a, _ in spans], [b for _, b in spans], cap=10**9)
+        rows.extend((a, b, flag.id) for a, b in where)
+    rows.sort(key=lambda r: (r[0], r[1], r[2]))
+    return tuple(rows)
 
 
 def assess(original: Recording, cleaned: Recording, limits=None, detector: Detector | None = None) -> Assessment:

@@ -56,6 +56,15 @@ SOURCE_SHAPE = (
 )
 SOURCE_CLIPPING = "common practice: a flat run at the extreme of a trace means the waveform was cut"
 SOURCE_EDGE = "common practice: start and end of a cleaned trace must look like its interior"
+SOURCE_EXCURSION = (
+    "IEC 60601-2-25 / AAMI EC11 low-frequency (impulse) test: after a 3 mV x 100 ms pulse the baseline may be "
+    "displaced by at most 0.1 mV (from memory); a displacement a cleaning adds under the beats is held to the same "
+    "0.1 mV; relative form: common practice"
+)
+SOURCE_GAPS = (
+    "common practice: where no beats are found the shape cannot be vouched for; a pause of 3 s is the usual "
+    "asystole alarm of monitors (from memory)"
+)
 SOURCE_BEATS = "common practice: the assessment compares beats; without beats it cannot vouch for the shape"
 
 
@@ -107,6 +116,8 @@ _DEFAULTS: tuple[LimitSpec, ...] = (
     LimitSpec("beat-shape-change", 15.0, 22.0, "%", SOURCE_SHAPE),
     LimitSpec("clipping", None, 0.0, "runs", SOURCE_CLIPPING),
     LimitSpec("edge-artefact", 0.10, 0.20, "mV", SOURCE_EDGE, True, 0.10, 0.20),
+    LimitSpec("baseline-excursion", 0.10, 0.20, "mV", SOURCE_EXCURSION, True, 0.10, 0.20),
+    LimitSpec("beats-missing", 3.0, None, "s", SOURCE_GAPS),
 )
 
 FLAG_IDS: tuple[str, ...] = tuple(spec.flag_id for spec in _DEFAULTS)

@@ -127,6 +127,13 @@ def _off_line(rows: np.ndarray, far_second_half: bool) -> np.ndarray:
     return np.ptp(rows - line, axis=1)
 
 
+def _off_level(rows: np.ndarray, far_second_half: bool) -> np.ndarray:
+    """Largest departure of each row from the mean of its half away from the edge (a ramp or swoop counts)."""
+    m = rows.shape[1]
+    half = slice(m // 2, m) if far_second_half else slice(0, m // 2)
+    return np.max(np.abs(rows - rows[:, half].mean(axis=1, keepdims=True)), axis=1)
+
+
 def _smooth_rows(rows: np.ndarray, width: int) -> np.ndarray:
     """Trailing-edge-safe moving average of ``width`` along rows ('valid' part, padded at the end)."""
     if width <= 1 or rows.shape[1] <= width:
@@ -139,7 +146,7 @@ def _smooth_rows(rows: np.ndarray, width: int) -> np.ndarray:
 def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tuple[float | None, list[tuple[int, int]]]:
     """How far the removed component at the start and end exceeds its interior.
 
-    Two views of the removed component (original minus cleaned) over the
+    Three views of the removed component (original minus cleaned) over the
     first and last 0.5 s, each compared with the same view of the interior
     (up to 2000 windows spread evenly) at its 99.5th percentile (the largest
     interior value for records under about 100 s); the larger excess is
@@ -150,10 +157,14 @@ def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tupl
       out, a step decaying from the edge; interior windows take the larger
       of both halves);
     * peak-to-peak after a 40 ms moving average (against noise) and the
-      window's straight line removed: the bend of a slower transient.
+      window's straight line removed: the bend of a slower transient;
+    * the largest departure, after a 40 ms moving average, from the mean of
+      the half of the window away from the edge: a ramp or the swoop of a
+      high-pass settling at the edge counts (it moves the beats there off
+      their level; the level of whole beats is judged by
+      :func:`tracevet.assessment.stretches.baseline_excursions`).
 
-    A slow offset or straight ramp at an edge (a baseline high-pass
-    settling) changes no beat's shape and does not count. Electrode motion and wander inside
+    Electrode motion and wander inside
     the record are removed as steeply as at an edge, hence the reference at
     the top of the interior rather than its typical value. A cleaning that
     behaves at the edges as inside gives a value at or below zero (common
@@ -179,11 +190,15 @@ def edge_deviation(original: np.ndarray, cleaned: np.ndarray, fs: float) -> tupl
     off_line = np.maximum(_off_line(inner, True), _off_line(inner, False))
     ref_raw = float(np.percentile(off_line, EDGE_REFERENCE_PERCENTILE, method="higher"))
     ref_bend = float(np.percentile(_bend(inner, smooth), EDGE_REFERENCE_PERCENTILE, method="higher"))
+    inner_smooth = _smooth_rows(inner, smooth)
+    ref_level = float(np.percentile(np.maximum(_off_level(inner_smooth, True), _off_level(inner_smooth, False)),
+                                    EDGE_REFERENCE_PERCENTILE, method="higher"))
     edges = [(0, width), (n - width, n)]
     values = []
     for (start, end), at_start in zip(edges, (True, False)):
         part = (original[start:end].astype(np.float64) - cleaned[start:end].astype(np.float64))[None, :]
-        values.append(max(float(_off_line(part, at_start)[0]) - ref_raw, float(_bend(part, smooth)[0]) - ref_bend))
+        values.append(max(float(_off_line(part, at_start)[0]) - ref_raw, float(_bend(part, smooth)[0]) - ref_bend,
+                          float(_off_level(_smooth_rows(part, smooth), at_start)[0]) - ref_level))
     return max(values), [edge for edge, value in zip(edges, values) if value > 0]
 
 
