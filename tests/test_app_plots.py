@@ -51,13 +51,15 @@ def test_peaks_are_drawn_at_full_height_in_a_long_window():
     assert out.removed_ratio < 0.05
 
 
-def test_colour_output_converts_to_plain_rich_text():
+def test_colour_output_is_rich_text_with_styles_and_no_escape_codes():
     orig, clean = _spiky(2500, 250.0)
     traces = TracePyramids.from_arrays(orig, clean, 250.0)
     out = render_trace_plots(traces, 0, 10, 60, (3, 3, 4), colour=True)
-    text = Text.from_ansi(out.plots[0].text)
+    text = Text("\n").join(out.plots[0].lines)
     assert "\x1b" not in text.plain
-    assert text.spans  # colours survive as styles
+    assert text.spans  # colours are styles
+    plain = render_trace_plots(traces, 0, 10, 60, (3, 3, 4), colour=False)
+    assert not any(span.style for line in plain.plots[0].lines for span in line.spans if "color" in str(span.style))
 
 
 def test_flag_strip_marks_the_worst_severity_per_column():

@@ -143,7 +143,7 @@ async def test_review_session_writes_exactly_the_decisions_to_the_log(queue_dir)
         rerun = app.screen.record_id
         old_run = app.screen.shown_run_id
         await pilot.press("r")
-        await wait_for(pilot, lambda: isinstance(app.screen, RerunScreen))  # or its form offering a suggestion
+        await wait_for(pilot, lambda: isinstance(app.screen, RerunScreen))
         await pilot.press("tab", "tab", "tab", "tab")  # transform -> wavelet -> extension -> level -> rule
         assert app.screen.focused.id == "set-rule"
         await pilot.press("enter", "s", "u", "r", "e", "enter")  # open the list, type to find "sure"
@@ -335,7 +335,14 @@ async def test_rerun_can_be_cancelled_and_leaves_nothing_behind(queue_dir):
         record_id = app.screen.record_id
         runs_before = [r.run_id for r in queue.runs(record_id)]
         await pilot.press("r")
-        await wait_for(pilot, lambda: isinstance(app.screen, RerunScreen))  # or its form offering a suggestion
+        await wait_for(pilot, lambda: isinstance(app.screen, RerunScreen))
+        assert not app.screen.query_one("#rerun-progress").display  # no "0%" before anything runs
+        await pilot.press("ctrl+r")  # the same settings as the shown run: refused, with a word
+        await wait_for(pilot, lambda: "change a setting first" in screen_text(app))
+        assert not app.screen.running and [r.run_id for r in queue.runs(record_id)] == runs_before
+        app.screen.query_one("#set-rule").value = "sure"
+        await pilot.pause(0.05)
+        assert "* rule" in screen_text(app)  # the changed field is marked
         await pilot.press("ctrl+r")
         await wait_for(pilot, lambda: app.screen.running)
         await pilot.press("escape")

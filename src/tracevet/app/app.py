@@ -8,6 +8,8 @@ from pathlib import Path
 from textual.app import App
 from textual.binding import Binding
 
+from tracevet.app.display import use_palette
+from tracevet.app.palette import palette_for
 from tracevet.app.worklist_screen import WorklistScreen
 from tracevet.errors import TracevetError
 from tracevet.workqueue import ClaimedByOther, Queue
@@ -44,7 +46,10 @@ class ReviewApp(App):
         self.queue = queue
         self.reviewer = reviewer
         self.colour = (os.environ.get("NO_COLOR") is None) if colour is None else bool(colour)
+        self.palette = palette_for(self.colour)
+        use_palette(self.palette)
         self.held_claim: str | None = None
+        self.last_decided: str | None = None  # the worklist puts its cursor after it
 
     def on_mount(self) -> None:
         """Show the worklist and start refreshing held claims."""

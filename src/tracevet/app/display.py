@@ -14,20 +14,23 @@ import math
 from rich.style import Style
 from rich.text import Text
 
+from tracevet.app.palette import COLOUR, Palette
 from tracevet.text import inert
 
 
-# Okabe & Ito (2008) colour-blind safe palette; every severity also has a
-# word and a symbol, so nothing depends on colour alone.
-SEVERITY_STYLE = {
-    "fail": Style(color="rgb(213,94,0)", bold=True),
-    "warn": Style(color="rgb(240,228,66)"),
-    "ok": Style(color="rgb(0,158,115)"),
-    "none": Style(dim=True),
-}
+# Severity styles of the active palette (tracevet.app.palette; the app picks
+# colour or monochrome at start). Every severity also has a word and a symbol,
+# so nothing depends on colour alone.
+SEVERITY_STYLE: dict[str, Style] = dict(COLOUR.severity)
 SEVERITY_WORD = {"fail": "FAIL", "warn": "warn", "ok": "ok", "none": "-"}
 SEVERITY_SYMBOL = {"fail": "✖", "warn": "▲", "ok": "✓", "none": "·"}
 SEVERITY_RANK = {"none": 0, "ok": 0, "warn": 1, "fail": 2}
+
+
+def use_palette(palette: Palette) -> None:
+    """Make ``palette``'s severity styles the ones every screen draws with."""
+    SEVERITY_STYLE.clear()
+    SEVERITY_STYLE.update(palette.severity)
 
 
 def inert_text(value: object, max_len: int | None = None, style: str | Style = "") -> Text:

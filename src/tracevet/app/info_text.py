@@ -9,6 +9,9 @@ from __future__ import annotations
 from rich.text import Text
 
 from tracevet.app import queue_view
+from tracevet.app.plots import format_stretch
+from tracevet.assessment import Assessment, Flag
+from tracevet.assessment.metric_words import FLAG_METRIC, METRIC_ROWS, channel_metrics, format_metric
 from tracevet.app.display import (
     SEVERITY_STYLE,
     format_number,
@@ -57,51 +60,94 @@ def panel_tabs(current: str, has_compare: bool) -> Text:
     return text
 
 
-def _flag_line(flag) -> Text:
+def stretches_text(flag: Flag, limit: int = 2, duration_s: float | None = None) -> str:
+    """Where a flag applies, short: ``12.4-31.9s, 40.0-41.5s +3`` (``whole record`` when it covers it)."""
+    where = tuple(flag.where)
+    if not where:
+        return "where: n/a"
+    if duration_s and len(where) == 1 and where[0][0] <= 0.05 and where[0][1] >= duration_s - 0.05:
+        return "whole record"
+    longest = max([float(end) for _, end in where] + [duration_s or 0.0])
+    shown = [format_stretch(float(a), float(b), longest) for a, b in where[:limit]]
+    more = len(where) - len(shown) + int(flag.where_more or 0)
+    return ", ".join(shown) + (f" +{more}" if more else "")
+
+
+def _flag_line(flag: Flag, duration_s: float | None) -> Text:
     line = Text(no_wrap=True, overflow="ellipsis")
     line.append_text(severity_text(flag.severity))
-    line.append("  ")
-    line.append_text(inert_text(flag.id, 28, style="bold"))
-    channel = getattr(flag, "channel", None)
-    if channel:
-        line.append("  ")
-        line.append_text(inert_text(channel, 12))
-    line.append("  value ", style="dim")
+    line.append(" ")
+    line.append_text(inert_text(flag.id, 24, style="bold"))
+    line.append(" ")
     line.append(format_number(flag.value))
-    line.append("  limit ", style="dim")
+    line.append(" vs ", style="dim")
     line.append(format_number(flag.limit))
+    line.append("  ")
+    line.append(stretches_text(flag, 2, duration_s))
+    if flag.beats_affected is not None and flag.beats_measured is not None:
+        line.append(f" ({flag.beats_affected}/{flag.beats_measured} beats)", style="dim")
     return line
 
 
-def flags_panel(assessment) -> Text:
-    """Every flag: severity (symbol, word, colour), id, value, limit, then its message and source."""
-    flags = queue_view.flag_list(assessment)
+def flags_panel(assessment: Assessment, channel: str | None = None, details: bool = False,
+                duration_s: float | None = None) -> Text:
+    """One line per flag (severity, id, value vs limit, where); ``details`` adds message, source, every stretch.
+
+    ``channel`` limits the list to one channel's flags (and flags not tied to a channel).
+    """
+    flags = [f for f in queue_view.flag_list(assessment) if channel is None or f.channel in (channel, "")]
     if not flags:
-        return Text.assemble(("✓ ok", SEVERITY_STYLE["ok"]), "  no flags: no measure passed its limit.")
+        ok = Text.assemble(("\u2713 ok", SEVERITY_STYLE["ok"]), "  no flags")
+        ok.append(" in this channel" if channel is not None else "")
+        ok.append(": no measure passed its limit.")
+        return ok
     text = Text()
     for flag in flags:
-        text.append_text(_flag_line(flag))
-        text.append("\n   ")
-        text.append_text(inert_text(flag.message, 200))
-        text.append("\n   source: ", style="dim")
-        text.append_text(inert_text(getattr(flag, "source", "") or "-", 200, style="dim"))
+        text.append_text(_flag_line(flag, duration_s))
+        if details:
+            text.append("\n   ")
+            text.append_text(inert_text(flag.message, 300))
+            text.append("\n   where: ", style="dim")
+            text.append_text(inert_text(stretches_text(flag, len(flag.where), duration_s), 2000))
+            text.append("\n   source: ", style="dim")
+            text.append_text(inert_text(flag.source or "-", 300, style="dim"))
         text.append("\n")
+    if not details:
+        text.append("d: details (message, source, every stretch)", style="dim")
     text.rstrip()
     return text
 
 
-def metrics_panel(assessment) -> Text:
-    """The assessment's metrics, two per line."""
-    items = queue_view.metric_items(assessment)
-    if not items:
-        return Text("no metrics in this assessment", style="dim")
+def metrics_panel(assessment: Assessment, channel: str, several_channels: bool, units: str | None) -> Text:
+    """The shown channel's metrics in words with units, two per line; flagged ones marked with their severity."""
+    values = channel_metrics(assessment.metrics, channel, several_channels)
+    if not values:
+        return Text("no metrics for this channel in this assessment", style="dim")
+    flagged: dict[str, str] = {}
+    for flag in queue_view.flag_list(assessment):
+        key = FLAG_METRIC.get(flag.id)
+        if key and flag.channel in (channel, "") and key not in flagged:
+            flagged[key] = flag.severity
     text = Text()
-    for index, (name, value) in enumerate(items):
-        cell = Text.assemble(inert_text(name, 28, style="dim"), " ", format_number(value))
-        cell.pad_right(max(0, 39 - cell.cell_len))
+    shown = 0
+    for key, label, unit in METRIC_ROWS:
+        if key not in values:
+            continue
+        severity = flagged.get(key)
+        cell = Text(no_wrap=True)
+        if severity:
+            cell.append_text(severity_text(severity, word=False))
+            cell.append(" ")
+        else:
+            cell.append("  ")
+        cell.append_text(inert_text(label, 26, style="dim"))
+        cell.append(" ")
+        cell.append_text(inert_text(format_metric(values.get(key), unit, units), 16,
+                                    style=SEVERITY_STYLE[severity_key(severity)] if severity else ""))
+        cell.truncate(39, pad=True)
         text.append_text(cell)
-        if index % 2 == 1:
-            text.append("\n")
+        shown += 1
+        text.append("\n" if shown % 2 == 0 else " ")
     text.rstrip()
     return text
 
@@ -163,16 +209,23 @@ def run_panel(info, runs: list, current_run_id: str | None) -> Text:
     return text
 
 
-def compare_panel(previous, shown) -> Text:
-    """Two runs side by side: changed settings, worst severity, every flag and metric of either run.
+def compare_panel(previous, shown, shown_id: str | None = None) -> Text:
+    """Two runs side by side, older -> newer: worst severity, every flag and metric, changed settings.
 
-    ``previous`` and ``shown`` are :class:`tracevet.app.queue_view.RunData`.
+    ``previous`` and ``shown`` are :class:`tracevet.app.queue_view.RunData`
+    (the older and the newer run); ``shown_id`` marks the run on screen.
     """
     width = 14
     text = Text()
-    header = Text.assemble(
-        ("".ljust(24), ""), inert_text(previous.run_id, width), " -> ", inert_text(shown.run_id, width)
-    )
+
+    def head(run) -> Text:
+        cell = inert_text(run.run_id, width - 2, style="bold" if run.run_id == shown_id else "")
+        if run.run_id == shown_id:
+            cell.append(" *", style="bold")
+        cell.truncate(width, pad=True)
+        return cell
+
+    header = Text.assemble(("(* shown)".ljust(24), "dim"), head(previous), " -> ", head(shown))
     text.append_text(header)
     text.append("\n")
     text.append("worst".ljust(24), style="dim")

@@ -1,10 +1,11 @@
 """Character plots of a recording: original, cleaned, removed; averaged beats.
 
-Everything here returns plain strings (plotext output, with or without ANSI
-colour codes) plus the numbers the app prints beside them; nothing imports
-Textual. The traces are first reduced with :mod:`tracevet.app.envelope`, so
-the cost of a plot depends on its width in columns, not on the length of
-the record or of the window.
+Everything here returns rich ``Text`` lines (drawn with braille cells by
+:mod:`tracevet.app.braille`, coloured by the palette or plain) plus the
+numbers the app prints beside them; nothing imports Textual. The traces are
+first reduced with :mod:`tracevet.app.envelope`, so the cost of a plot
+depends on its width in columns, not on the length of the record or of the
+window, and it stays around a millisecond (see ``benchmarks/bench_redraw.py``).
 
 Layout conventions shared by every plot here:
 
@@ -20,36 +21,24 @@ Layout conventions shared by every plot here:
 from __future__ import annotations
 
 import math
-import threading
 from dataclasses import dataclass, field
 
 import numpy as np
-import plotext
+from rich.style import Style
+from rich.text import Text
 
+from tracevet.app.braille import render_series
 from tracevet.app.envelope import MinMaxPyramid
+from tracevet.app.palette import COLOUR
 
 Y_LABEL_WIDTH = 8
 # The canvas starts right after the tick labels; each label ends with a blank.
 CANVAS_OFFSET = Y_LABEL_WIDTH
 
-# Okabe & Ito (2008) colour-blind safe palette ("Color Universal Design"):
-# orange, sky blue, reddish purple; the grey is for tick labels.
-TRACE_COLOURS = {
-    "original": (230, 159, 0),
-    "cleaned": (86, 180, 233),
-    "removed": (204, 121, 167),
-}
-TICK_COLOUR = 245
-
-_THEME = "tracevet-traces"
-plotext.add_theme(
-    _THEME,
-    text=plotext.pixel(foreground=TICK_COLOUR),
-    sequence=list(TRACE_COLOURS.values()),
-)
-plotext.terminal.limit(False, False)
-# plotext keeps one global figure; builds from worker threads take turns.
-_PLOTEXT_LOCK = threading.Lock()
+# Trace colours: one owner, tracevet.app.palette (chosen to stay apart from the
+# severity colours on 16-colour terminals too); the grey is for tick labels.
+TRACE_COLOURS = COLOUR.trace
+TICK_STYLE = Style(color="rgb(138,138,138)")
 
 
 @dataclass
@@ -127,17 +116,42 @@ class Regions:
         return float(self.start_s[index]) if index < self.start_s.size else None
 
 
+    def next_index(self, after_s: float, backwards: bool = False) -> int | None:
+        """Index of the first region starting after ``after_s`` (or the last one starting before it)."""
+        if backwards:
+            index = int(np.searchsorted(self.start_s, after_s - 1e-6, side="left")) - 1
+            return index if index >= 0 else None
+        index = int(np.searchsorted(self.start_s, after_s + 1e-6, side="right"))
+        return index if index < self.start_s.size else None
+
+    def overlapping(self, start_s: float, end_s: float) -> int | None:
+        """Index of the region covering most of ``[start_s, end_s]``, or None when none overlaps it."""
+        overlap = np.minimum(self.end_s, end_s) - np.maximum(self.start_s, start_s)
+        if overlap.size == 0 or float(overlap.max()) <= 0:
+            return None
+        return int(np.argmax(overlap))
+
+
 NO_REGIONS = Regions(np.zeros(0), np.zeros(0), np.zeros(0, dtype=np.int8))
 
 
 @dataclass(frozen=True)
 class PlotText:
-    """One rendered plot and the numbers printed beside it."""
+    """One rendered plot and the numbers printed beside it.
+
+    ``lines`` are the rows as rich Text (label column, then the canvas);
+    ``text`` is the same without styles, one row per line.
+    """
 
     name: str
-    text: str
+    lines: tuple[Text, ...]
     y_low: float
     y_high: float
+
+    @property
+    def text(self) -> str:
+        """The plot as plain text."""
+        return "\n".join(line.plain for line in self.lines)
 
 
 @dataclass(frozen=True)
@@ -157,25 +171,40 @@ def canvas_columns(width: int) -> int:
     return max(int(width) - CANVAS_OFFSET, 4)
 
 
-def format_clock(seconds: float, span_s: float | None = None) -> str:
+def format_clock(seconds: float, span_s: float | None = None, longest_s: float | None = None) -> str:
     """Format a time in seconds as ``s``, ``m:ss`` or ``h:mm:ss`` with sensible decimals.
 
     ``span_s`` (the width of the window shown) decides how many decimals are
-    needed to tell neighbouring ticks apart.
+    needed to tell neighbouring ticks apart; ``longest_s`` (the latest time
+    printed beside this one) makes every label of one line take the same
+    form. The value is rounded before it is split into minutes and seconds,
+    so 299.99 s with one decimal reads ``5:00.0``, never ``4:60.0``.
     """
     span = abs(span_s) if span_s else abs(seconds)
     decimals = 2 if span < 2 else 1 if span < 60 else 0
+    longest = max(abs(seconds), abs(longest_s or 0.0))
     sign = "-" if seconds < 0 else ""
-    seconds = abs(seconds)
-    if seconds < 60 and (span_s is None or span_s < 60):
-        return f"{sign}{seconds:.{decimals}f}s"
-    whole = int(seconds)
-    frac = seconds - whole
+    scale = 10**decimals
+    whole, fraction = divmod(int(round(abs(seconds) * scale)), scale)
+    digits = f".{fraction:0{decimals}d}" if decimals else ""
+    if round(longest * scale) < 60 * scale and (span_s is None or span_s < 60):
+        return f"{sign}{whole}{digits}s"
     h, rem = divmod(whole, 3600)
-    m, s = divmod(rem, 60)
-    tail = f"{s + frac:0{3 + decimals if decimals else 2}.{decimals}f}" if decimals else f"{s:02d}"
-    long_view = span_s is not None and span_s >= 3600
+    m, sec = divmod(rem, 60)
+    tail = f"{sec:02d}{digits}"
+    long_view = (span_s is not None and span_s >= 3600) or round(longest) >= 3600
     return f"{sign}{h}:{m:02d}:{tail}" if h or long_view else f"{sign}{m}:{tail}"
+
+
+def format_stretch(start_s: float, end_s: float, longest_s: float) -> str:
+    """A flagged stretch in tenths of a second, in the form the record's length calls for (``14.0s-15.0s``)."""
+    return f"{format_clock(start_s, 10.0, longest_s)}-{format_clock(end_s, 10.0, longest_s)}"
+
+
+def format_window(start_s: float, end_s: float) -> str:
+    """``start-end`` of a window, both in one form (``55.0s-1:05.0`` never happens)."""
+    span = end_s - start_s
+    return f"{format_clock(start_s, span, end_s)}-{format_clock(end_s, span, end_s)}"
 
 
 def format_value(value: float, width: int = Y_LABEL_WIDTH - 1) -> str:
@@ -231,40 +260,63 @@ def _padded(label: str) -> str:
     return label[-(Y_LABEL_WIDTH - 1) :].rjust(Y_LABEL_WIDTH - 1) + " "
 
 
-def _new_figure(width: int, height: int, colour: bool):
-    fig = plotext.figure
-    fig.clear()
-    fig.plot_size(int(width), int(height))
-    fig.axes(False)
-    fig.theme(_THEME if colour else "colorless")
-    fig.canvas("default")
-    return fig
+def _trace_style(name: str, colour: bool) -> Style | None:
+    if not colour:
+        return None
+    red, green, blue = TRACE_COLOURS[name]
+    return Style(color=f"rgb({red},{green},{blue})")
+
+
+def _label(text: str, colour: bool) -> Text:
+    return Text(_padded(text), style=TICK_STYLE if colour else "", no_wrap=True)
+
+
+def _tick_row(x_low: float, x_high: float, ticks, columns: int, colour: bool) -> Text:
+    """The time-axis row: tick labels left-aligned at their column, none overlapping."""
+    row = [" "] * columns
+    span = (x_high - x_low) or 1.0
+    free_from = 0
+    positions, labels = ticks
+    for position, label in zip(positions, labels):
+        column = int(round((float(position) - x_low) / span * (columns - 1)))
+        if column < free_from or column + len(label) > columns:
+            continue
+        row[column : column + len(label)] = list(label)
+        free_from = column + len(label) + 1
+    line = Text(" " * CANVAS_OFFSET, no_wrap=True)
+    line.append("".join(row), style=TICK_STYLE if colour else "")
+    return line
 
 
 def _render_plot(
-    fig,
+    name: str,
     series,
     x_low: float,
     x_high: float,
     y_low: float,
     y_high: float,
-    x_ticks: tuple[np.ndarray, list[str]] | None,
+    columns: int,
+    height: int,
+    x_ticks,
     colour: bool,
-) -> str:
-    for x, y, rgb, marker in series:
-        styled = plotext.marker(marker, pixel=plotext.pixel(foreground=rgb)) if colour else marker
-        signal = fig.signal(x, y, marker=styled)
-        if marker == "braille":
-            signal.lines()
-        fig.draw(signal)
-    fig.ruler("x").lim(x_low, x_high)
-    fig.ruler("y").lim(y_low, y_high)
-    fig.ruler("y").ticks([y_low, y_high], [_padded(format_value(y_low)), _padded(format_value(y_high))])
-    if x_ticks is None:
-        fig.ruler("x").ticks([])
-    else:
-        fig.ruler("x").ticks(list(x_ticks[0]), x_ticks[1])
-    return fig.build().string(colorless=not colour).rstrip("\n")
+    verticals: tuple[float, ...] = (),
+) -> PlotText:
+    """One plot: ``height`` rows (the last one holds the time ticks when ``x_ticks`` is given)."""
+    canvas_rows = max(height - (1 if x_ticks is not None else 0), 1)
+    marks = Style(color="rgb({},{},{})".format(*COLOUR.marks)) if colour else Style(dim=True)
+    canvas = render_series(series, x_low, x_high, y_low, y_high, columns, canvas_rows, verticals, marks)
+    lines = []
+    for index, row in enumerate(canvas):
+        if index == 0:
+            label = _label(format_value(y_high), colour)
+        elif index == canvas_rows - 1:
+            label = _label(format_value(y_low), colour)
+        else:
+            label = Text(" " * CANVAS_OFFSET, no_wrap=True)
+        lines.append(label + row)
+    if x_ticks is not None:
+        lines.append(_tick_row(x_low, x_high, x_ticks, columns, colour))
+    return PlotText(name, tuple(lines), y_low, y_high)
 
 
 def render_trace_plots(
@@ -275,6 +327,7 @@ def render_trace_plots(
     heights: tuple[int, int, int],
     colour: bool = True,
     regions: Regions = NO_REGIONS,
+    only_original: bool = False,
 ) -> TracePlots:
     """Render original, cleaned and removed for one time window.
 
@@ -293,6 +346,8 @@ def render_trace_plots(
         False gives plain text (for ``NO_COLOR`` terminals).
     regions : Regions
         Flagged stretches, turned into a per-column flag strip.
+    only_original : bool
+        Draw the original alone over all the rows (a record without a cleaned run).
 
     Returns
     -------
@@ -319,25 +374,22 @@ def render_trace_plots(
     ratio = removed_ptp / orig_ptp if orig_ptp > 0 else 0.0
 
     tick_pos = nice_ticks(x_low, x_high, max(1, columns // 12))
-    tick_labels = [format_clock(t, x_high - x_low) for t in tick_pos]
+    tick_labels = [format_clock(t, x_high - x_low, x_high) for t in tick_pos]
     plots = []
-    with _PLOTEXT_LOCK:
-        for index, name in enumerate(("original", "cleaned", "removed")):
-            env = envs[name]
-            y_low, y_high = removed if name == "removed" else shared
-            fig = _new_figure(width, heights[index], colour)
-            last = index == 2
-            text = _render_plot(
-                fig,
-                [(env.times(fs), env.values, TRACE_COLOURS[name], "braille")],
-                x_low,
-                x_high,
-                y_low,
-                y_high,
-                (tick_pos, tick_labels) if last else None,
-                colour,
-            )
-            plots.append(PlotText(name, text, y_low, y_high))
+    if only_original:  # no cleaned run yet: the original alone, over the whole height
+        env = envs["original"]
+        y_low, y_high = _y_range(float(env.bin_min.min()), float(env.bin_max.max()))
+        series = [(env.times(fs), env.values, _trace_style("original", colour), False)]
+        plot = _render_plot("original", series, x_low, x_high, y_low, y_high, columns, sum(heights),
+                            (tick_pos, tick_labels), colour)
+        return TracePlots(x_low, x_high, (plot,), 0.0, flag_strip(regions, x_low, x_high, columns), columns)
+    for index, name in enumerate(("original", "cleaned", "removed")):
+        env = envs[name]
+        y_low, y_high = removed if name == "removed" else shared
+        last = index == 2
+        series = [(env.times(fs), env.values, _trace_style(name, colour), False)]
+        ticks = (tick_pos, tick_labels) if last else None
+        plots.append(_render_plot(name, series, x_low, x_high, y_low, y_high, columns, heights[index], ticks, colour))
     strip = flag_strip(regions, x_low, x_high, columns)
     return TracePlots(x_low, x_high, tuple(plots), ratio, strip, columns)
 
@@ -375,6 +427,8 @@ def render_beat_overlay(
     width: int,
     heights: tuple[int, int],
     colour: bool = True,
+    marks_s: tuple[float, ...] = (),
+    mark_names: tuple[str, ...] = (),
 ) -> tuple[PlotText, PlotText]:
     """Render the averaged beat: original and cleaned templates overlaid, and their difference.
 
@@ -392,6 +446,10 @@ def render_beat_overlay(
     colour : bool
         False gives plain text; the cleaned template is then drawn with dots
         so the two stay distinguishable without colour.
+    marks_s, mark_names : tuple
+        Times (s, relative to R) marked by dotted vertical lines, and their
+        names written on the time axis in place of nearby ticks (the J point
+        and the ST reading point).
 
     Returns
     -------
@@ -420,24 +478,24 @@ def render_beat_overlay(
     x_low, x_high = float(t[0]), float(t[-1])
     ms = nice_ticks(x_low * 1000, x_high * 1000, max(1, columns // 10))
     ticks = (ms / 1000.0, [f"{m:g}ms" for m in ms])
-    with _PLOTEXT_LOCK:
-        fig = _new_figure(width, heights[0], colour)
-        clean_marker = "braille" if colour else "dot"
-        overlay = _render_plot(
-            fig,
-            [
-                (*thin(orig), TRACE_COLOURS["original"], "braille"),
-                (*thin(clean), TRACE_COLOURS["cleaned"], clean_marker),
-            ],
-            x_low,
-            x_high,
-            low,
-            high,
-            None,
-            colour,
-        )
-        fig = _new_figure(width, heights[1], colour)
-        difference = _render_plot(
-            fig, [(*thin(diff), TRACE_COLOURS["removed"], "braille")], x_low, x_high, d_low, d_high, ticks, colour
-        )
-    return PlotText("beat", overlay, low, high), PlotText("beat difference", difference, d_low, d_high)
+    marks = tuple(float(m) for m in marks_s)
+    if marks:
+        labels = list(ticks[1])
+        positions = list(ticks[0])
+        for name, position in zip(mark_names, marks):  # the marks' names take the place of nearby ticks
+            keep = [abs(p - position) * 1000 > 30 for p in positions]
+            positions = [p for p, k in zip(positions, keep) if k] + [position]
+            labels = [label for label, k in zip(labels, keep) if k] + [name]
+        order = np.argsort(positions)
+        ticks = (np.array([positions[i] for i in order], dtype=np.float64), [labels[i] for i in order])
+    overlay_series = [
+        (*thin(orig), _trace_style("original", colour), False),
+        (*thin(clean), _trace_style("cleaned", colour), not colour),
+    ]
+    overlay = _render_plot("beat", overlay_series, x_low, x_high, low, high, columns, heights[0], None, colour, marks)
+    difference = _render_plot(
+        "beat difference",
+        [(*thin(diff), _trace_style("removed", colour), False)],
+        x_low, x_high, d_low, d_high, columns, heights[1], ticks, colour, marks,
+    )
+    return overlay, difference

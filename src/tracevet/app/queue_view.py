@@ -7,9 +7,10 @@ pure functions can be tested without a terminal.
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
 from dataclasses import dataclass, field
+from datetime import datetime, timezone
 
+import numpy as np
 from rich.text import Text
 
 from tracevet.app.display import SEVERITY_RANK, inert_text, severity_key
@@ -17,9 +18,6 @@ from tracevet.app.plots import Regions, TracePyramids
 from tracevet.assessment import Assessment
 from tracevet.recording import Recording
 from tracevet.workqueue import DECIDED_STATES, REVIEW_STATES, Claim, LastDecision, Queue, RecordSummary, RunInfo
-
-__all__ = ["DECIDED_STATES", "REVIEW_STATES"]
-
 
 def holder_name(holder: Claim | None) -> str | None:
     """The reviewer holding a record, or None."""
@@ -219,25 +217,89 @@ def _channel_beats(assessment, channel: int):
     return channels[channel] if 0 <= channel < len(channels) else None
 
 
-def flagged_regions(run: "RunData", channel: int) -> Regions:
-    """Flagged beats and stretches of one channel, with their flag's severity (cached per run)."""
+def flagged_regions(run: RunData, channel: int) -> Regions:
+    """The flagged stretches of one channel, with their flag's severity (cached per run).
+
+    Taken from each flag's ``where`` (the stretches the damage covers); an
+    assessment stored before flags said where falls back to the flagged
+    beats kept in its beat data.
+    """
     if channel in run.regions:
         return run.regions[channel]
     beats = _channel_beats(run.assessment, channel)
-    if beats is None:
-        run.regions[channel] = Regions.from_items([])
-        return run.regions[channel]
-    name = beats.channel
-    severities: dict[str, str] = {}
-    for flag in flag_list(run.assessment):
-        if getattr(flag, "channel", name) not in (name, None, ""):
-            continue
-        if SEVERITY_RANK[severity_key(flag.severity)] > SEVERITY_RANK[severity_key(severities.get(flag.id))]:
-            severities[flag.id] = flag.severity
-    run.regions[channel] = Regions.from_items(
-        (start, end, severities.get(str(flag_id), "warn")) for start, end, flag_id in beats.regions
-    )
+    name = beats.channel if beats is not None else None
+    flags = [f for f in flag_list(run.assessment) if name is None or f.channel in (name, "")]
+    items = [(a, b, f.severity) for f in flags for a, b in f.where]
+    if not items and beats is not None:
+        severities: dict[str, str] = {}
+        for flag in flags:
+            if SEVERITY_RANK[severity_key(flag.severity)] > SEVERITY_RANK[severity_key(severities.get(flag.id))]:
+                severities[flag.id] = flag.severity
+        items = [(start, end, severities.get(str(flag_id), "warn")) for start, end, flag_id in beats.regions]
+    run.regions[channel] = Regions.from_items(items)
     return run.regions[channel]
+
+
+def channel_name(assessment: Assessment, channel: int) -> str | None:
+    """Name of channel ``channel`` in the assessment (None when it has no beat data for it)."""
+    beats = _channel_beats(assessment, channel)
+    return None if beats is None else beats.channel
+
+
+def stretch_templates(run: RunData, original: Recording, channel: int, start_s: float, end_s: float):
+    """Averaged beat of the beats inside one stretch: (time_s, original, cleaned, n_beats), or None.
+
+    The median, sample by sample, of the beat windows of every dominant-shape
+    beat whose R peak lies in ``[start_s, end_s]``, on the same time axis as
+    the whole-record template (the template is the median beat; common
+    practice). Vectorised: one fancy-index gather of the windows.
+    """
+    beats = _channel_beats(run.assessment, channel)
+    if beats is None or len(beats.template_time_s) < 2:
+        return None
+    fs = original.fs
+    offsets = np.round(np.asarray(beats.template_time_s) * fs).astype(np.int64)
+    peaks = np.asarray(beats.r_peaks, dtype=np.int64)
+    labels = np.asarray(beats.beat_labels)
+    times = peaks / fs
+    chosen = peaks[(times >= start_s) & (times <= end_s) & (labels[: peaks.size] == 0)]
+    n = original.n_samples
+    chosen = chosen[(chosen + offsets[0] >= 0) & (chosen + offsets[-1] < n)]
+    if chosen.size == 0:
+        return None
+    index = chosen[:, None] + offsets[None, :]
+    orig = np.median(np.asarray(original.channel(channel))[index], axis=0)
+    clean = np.median(np.asarray(run.cleaned.channel(channel))[index], axis=0)
+    return np.asarray(beats.template_time_s), orig, clean, int(chosen.size)
+
+
+def fiducial_marks(time_s, original_template, rr_s: float, fs: float) -> tuple[float, float] | None:
+    """(J point, ST reading point) in seconds relative to R, located on the original template.
+
+    Uses the assessment's own delineation (:func:`tracevet.assessment.fiducials.find_fiducials`):
+    J where the QRS slope falls quiet, ST at J+80 ms (J+60 ms when RR < 0.6 s).
+    """
+    from tracevet.assessment.fiducials import find_fiducials
+
+    t = np.asarray(time_s, dtype=np.float64)
+    template = np.asarray(original_template, dtype=np.float64)
+    if t.size < 8 or not np.all(np.isfinite(template)):
+        return None
+    centre = int(np.argmin(np.abs(t)))
+    try:
+        points = find_fiducials(template, centre, fs, rr_s, 0.0)
+    except (ValueError, IndexError):
+        return None
+    j_s = float(np.interp(points.offset, np.arange(t.size), t))
+    return j_s, j_s + points.st_delay_ms / 1000.0
+
+
+def median_rr_s(assessment: Assessment, channel: int, fs: float) -> float:
+    """Median RR interval of one channel in seconds (0.8 s when fewer than two beats)."""
+    beats = _channel_beats(assessment, channel)
+    if beats is None or len(beats.r_peaks) < 2:
+        return 0.8
+    return float(np.median(np.diff(np.asarray(beats.r_peaks, dtype=np.float64)))) / fs
 
 
 def beat_templates(assessment, channel: int):

@@ -23,7 +23,7 @@ if TYPE_CHECKING:
     from tracevet.workqueue import RecordSummary, RunInfo
 
 # Actions that change the queue; the record screen shows their keys disabled while read-only.
-DECISION_ACTIONS = frozenset({"decide", "rerun"})
+DECISION_ACTIONS = frozenset({"decide", "rerun", "send_back_with_settings"})
 
 
 def override_question(record_id: str, previous: LastDecision, decision: str) -> Text:
@@ -89,13 +89,13 @@ class DecisionActions:
         else:
             self.ask_note(decision, override=False)
 
-    def confirm_override(self, decision: str, previous: LastDecision) -> None:
+    def confirm_override(self, decision: str, previous: LastDecision, requested=None) -> None:
         """Show the colleague's standing decision and ask whether to override it."""
         from tracevet.app.confirm_screen import ConfirmScreen
 
         def answered(yes: bool | None) -> None:
             if yes:
-                self.ask_note(decision, override=True)
+                self.ask_note(decision, override=True, requested=requested)
             else:
                 self.notify("not overridden: nothing written")
 
@@ -103,8 +103,28 @@ class DecisionActions:
         question = ConfirmScreen("OVERRIDE A COLLEAGUE'S DECISION?", body, f"Override with {decision}?")
         self.app.push_screen(question, answered)
 
-    def ask_note(self, decision: str, override: bool) -> None:
-        """The note prompt; its answer is written to the log."""
+    def action_send_back_with_settings(self) -> None:
+        """Send back for a re-run with settings chosen in the re-run form (attached to the decision)."""
+        from tracevet.app.rerun_screen import RerunScreen
+
+        run = self.shown_run
+        if self.read_only or run is None:
+            return
+        settings = dict(run.info.settings or {})
+
+        def chosen(requested) -> None:
+            if requested is None:
+                return
+            previous = self.summary.standing_decision if self.summary is not None else None
+            if previous is not None and previous.reviewer != self.app.reviewer:
+                self.confirm_override("rerun", previous, requested)
+            else:
+                self.ask_note("rerun", override=False, requested=requested)
+
+        self.app.push_screen(RerunScreen(self.record_id, settings, run.run_id, send_back=True), chosen)
+
+    def ask_note(self, decision: str, override: bool, requested=None) -> None:
+        """The note prompt; its answer is written to the log (with ``requested`` settings for a send-back)."""
         from tracevet.app.note_screen import NoteScreen
 
         run = self.shown_run
@@ -125,15 +145,16 @@ class DecisionActions:
             if note is None:
                 self.notify("cancelled: nothing written")
                 return
-            self.save_decision(decision, note, run.run_id, override)
+            self.save_decision(decision, note, run.run_id, override, requested)
 
         self.app.push_screen(prompt, save)
 
-    def save_decision(self, decision: str, note: str, run_id: str, override: bool = False) -> None:
+    def save_decision(self, decision: str, note: str, run_id: str, override: bool = False, requested=None) -> None:
         """Write the decision (fsynced by the queue) and only then say saved; move on."""
         try:
             entry = self.app.queue.decide(
-                self.record_id, decision, note, self.app.reviewer, run_id=run_id, override=override
+                self.record_id, decision, note, self.app.reviewer, run_id=run_id, override=override,
+                requested_settings=requested,
             )
         except DecisionOverride as exc:
             # someone decided while the note was being typed: show it and ask again
@@ -144,6 +165,7 @@ class DecisionActions:
             self.notify(f"not saved: {exc.one_line()}", severity="error", timeout=8)
             return
         self.app.held_claim = None  # the queue ends the claim with the decision
+        self.app.last_decided = self.record_id
         overridden = entry.get("overrides")
         what = f" (log entry {entry.seq}" + (f", overrides entry {overridden.get('seq')})" if overridden else ")")
         self.app.notify(f"saved: {decision} {self.record_id} run {run_id}{what}", timeout=5)
@@ -179,7 +201,7 @@ class DecisionActions:
         run = self.shown_run
         settings = dict(run.info.settings or {}) if run is not None else {}
 
-        def finished(new_run_id: str | None) -> None:
+        def finished(new_run_id: object) -> None:
             if new_run_id:
                 self.previous_run_id = self.shown_run_id
                 self.panel = "compare" if self.previous_run_id else "flags"

@@ -11,6 +11,7 @@ from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
 from textual.reactive import var
 from textual.screen import Screen
+from textual.widget import Widget
 from textual.widgets import Footer, Static
 
 from tracevet.app import info_text, queue_view
@@ -18,8 +19,10 @@ from tracevet.app.display import SEVERITY_STYLE, SEVERITY_SYMBOL, format_duratio
 from tracevet.app.plots import (
     CANVAS_OFFSET,
     TracePlots,
-    format_clock,
+    TracePyramids,
+    format_stretch,
     format_value,
+    format_window,
     render_beat_overlay,
     render_trace_plots,
 )
@@ -45,6 +48,58 @@ PLOT_LABELS = {
     "beat difference": "o - c",
 }
 READ_ONLY_NAME_CHARS = 12
+STRETCH_MIN_SPAN_S = 5.0
+STRETCH_MAX_SPAN_S = 20.0
+
+
+class TextBlock(Widget):
+    """A fixed-size block of text whose new content is painted without a new layout.
+
+    ``Static.update`` lays the whole screen out again; the plots, the flag
+    strip and the one-line headers change on every key but never change
+    size by themselves, so they only repaint (part of the redraw speed).
+    """
+
+    DEFAULT_CSS = "TextBlock { height: 1; width: 100%; }"
+
+    def __init__(self, id: str, classes: str | None = None) -> None:  # noqa: A002 - Textual's name
+        super().__init__(id=id, classes=classes)
+        self._text = Text("")
+
+    def render(self) -> Text:
+        """The current text."""
+        return self._text
+
+    def update(self, text: Text | str = "") -> None:
+        """Show ``text`` (repaint only)."""
+        self._text = text if isinstance(text, Text) else Text(str(text))
+        self.refresh()
+
+    def set_height(self, rows: int) -> None:
+        """Change the height (this one needs a layout), only when it differs."""
+        if self.styles.height is None or self.styles.height.value != rows:
+            self.styles.height = rows
+
+    def show(self, shown: bool) -> None:
+        """Show or hide, only when that changes."""
+        if self.display != shown:
+            self.display = shown
+
+
+def stretch_lead_s(span_s: float) -> float:
+    """How much of the window precedes a flagged stretch shown by ``]`` (context before the damage)."""
+    return min(1.0, 0.1 * span_s)
+
+
+def stretch_window(start_s: float, end_s: float, duration_s: float) -> tuple[float, float]:
+    """Window (span, start) showing a flagged stretch so that its beats can be told apart.
+
+    The span covers the stretch and a little context, between 5 s and 20 s
+    (at 80 columns, 20 s still draws each beat of a normal heart rate several
+    dots wide); a longer stretch is shown from its beginning.
+    """
+    span = min(max(end_s - start_s + 2.0, STRETCH_MIN_SPAN_S), STRETCH_MAX_SPAN_S, duration_s)
+    return span, start_s - stretch_lead_s(span)
 
 
 class RecordScreen(DecisionActions, SuggestionActions, Screen):
@@ -65,6 +120,8 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         Binding("left_square_bracket,p", "previous_flag", "Previous flag", show=False),
         Binding("c", "next_channel", "Channel", show=False),
         Binding("b", "toggle_beats", "Beat"),
+        Binding("B", "stretch_beats", "Stretch beat", show=False),
+        Binding("d", "toggle_details", "Details", show=False),
         Binding("i", "next_panel", "Panel", show=False),
         Binding("v", "next_run", "Run", show=False),
         Binding("pageup", "scroll_panel(-1)", "Panel up", show=False),
@@ -72,6 +129,7 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         Binding("a", "decide('accept')", "Accept"),
         Binding("x", "decide('reject')", "Reject"),
         Binding("s", "decide('rerun')", "Send back", show=False),
+        Binding("S", "send_back_with_settings", "Send back with settings", show=False),
         Binding("r", "rerun", "Re-run"),
         Binding("escape,q", "back", "Back", key_display="esc"),
         *SUGGESTION_BINDINGS,
@@ -84,10 +142,12 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         "zoom(2)": "zoom out (twice the window)",
         "jump_start": "jump to the start of the record",
         "jump_end": "jump to the end of the record",
-        "next_flag": "centre the next flagged beat or region",
-        "previous_flag": "centre the previous flagged beat or region",
+        "next_flag": "next flagged stretch, zoomed so the damage shows",
+        "previous_flag": "previous flagged stretch, zoomed so the damage shows",
         "next_channel": "next channel",
-        "toggle_beats": "averaged beat: original and cleaned overlaid, and their difference",
+        "toggle_beats": "averaged beat of the whole record: original and cleaned overlaid, their difference, J and ST",
+        "stretch_beats": "averaged beat of the flagged stretch in view only (b: back to the whole record)",
+        "toggle_details": "flags panel: one line per flag, or with message, source and every stretch",
         "next_panel": "lower panel: flags, metrics, run settings, run comparison",
         "next_run": "show the next run of this record (the one shown is the one you sign)",
         "scroll_panel(-1)": "scroll the lower panel up",
@@ -95,6 +155,7 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         "decide('accept')": "accept the shown run (note; required when a flag is FAIL)",
         "decide('reject')": "reject the record (a note is required)",
         "decide('rerun')": "send back for re-run (note optional)",
+        "send_back_with_settings": "send back with settings for the re-run (chosen in the form, then a note)",
         "rerun": "re-run now with other settings; result shown beside the previous run",
         "back": "back to the worklist (releases the record)",
     }
@@ -107,6 +168,9 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
     start_s: var[float] = var(0.0, init=False)
     span_s: var[float] = var(DEFAULT_SPAN_S, init=False)
     read_only: var[bool] = var(False, init=False)
+    details: var[bool] = var(False, init=False)
+    # averaged beat over the whole record (None) or over one flagged stretch (start_s, end_s)
+    beat_scope: var[tuple[float, float] | None] = var(None, init=False)
 
     def __init__(self, record_id: str) -> None:
         super().__init__()
@@ -121,6 +185,9 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         self.last_plots: TracePlots | None = None
         self._panel_key: tuple | None = None
         self._redraw_pending = False
+        self._original_pyramids: dict[int, TracePyramids] = {}
+        self._traces_key: tuple | None = None
+        self._panel_content_key: tuple | None = None
 
     @property
     def holder_text(self) -> str:
@@ -137,11 +204,16 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         self.request_redraw()
 
     watch_channel = watch_view = watch_shown_run_id = watch_start_s = watch_span_s = _watch_redraw
+    watch_beat_scope = _watch_redraw
 
     def watch_panel(self) -> None:
         """A new lower panel: fill it."""
         if self.shown_run is not None and self.is_mounted:
             self.update_panel()
+
+    def watch_details(self) -> None:
+        """Flags panel with or without details."""
+        self.watch_panel()
 
     def watch_read_only(self) -> None:
         """Locked or unlocked: the title badge and the decision keys follow."""
@@ -163,20 +235,22 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         """Decision keys are shown disabled (and do nothing) while read-only or without a run."""
-        if action in DECISION_ACTIONS and (self.read_only or self.shown_run is None):
+        if action in DECISION_ACTIONS and self.read_only:
+            return None
+        if action in ("decide", "send_back_with_settings") and self.shown_run is None:
             return None
         return True
 
     # -- layout -------------------------------------------------------
     def compose(self) -> ComposeResult:
         """Title line, last decision, window line, the plot stack, the panel, the key footer."""
-        yield Static(id="record-title")
-        yield Static(id="decision-line")
-        yield Static(id="window-line")
+        yield TextBlock(id="record-title")
+        yield TextBlock(id="decision-line")
+        yield TextBlock(id="window-line")
         with Vertical(id="plots"):
             for name in PLOT_NAMES:
-                yield Static(id=f"plot-{name}", classes="plot")
-            yield Static(id="flag-strip")
+                yield TextBlock(id=f"plot-{name}", classes="plot")
+            yield TextBlock(id="flag-strip")
         yield Static(id="panel-tabs")
         with VerticalScroll(id="panel"):
             yield Static(id="panel-body")
@@ -184,7 +258,8 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
 
     def on_mount(self) -> None:
         """Claim the record (or open it read-only) and load it in the background."""
-        self.query_one("#record-title", Static).update(Text.assemble("loading record ", inert_text(self.record_id, 40)))
+        loading = Text.assemble("loading record ", inert_text(self.record_id, 40))
+        self.query_one("#record-title", TextBlock).update(loading)
         try:
             self.app.claim(self.record_id)
         except ClaimedByOther as exc:
@@ -306,7 +381,7 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
             return
         run = self.shown_run
         if run is None:
-            self.query_one("#window-line", Static).update(Text("this record has no cleaned run yet", style="dim"))
+            self.draw_original_only()
             return
         if self.channel not in run.pyramids:
             self.build_pyramids(run, self.channel)
@@ -316,6 +391,37 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         else:
             self.draw_traces(run)
         self.update_panel()
+
+    def draw_original_only(self) -> None:
+        """A record without a cleaned run: its original, with a hint on how to get a run."""
+        rec = self.original
+        if rec is None:
+            return
+        if self.channel not in self._original_pyramids:
+            samples = rec.channel(self.channel)
+            self._original_pyramids[self.channel] = TracePyramids.from_arrays(samples, samples, rec.fs)
+        traces = self._original_pyramids[self.channel]
+        width, rows = self.plot_geometry()
+        plots = render_trace_plots(traces, self.start_s, self.span_s, width, (rows - 2, 1, 1), self.app.colour,
+                                   only_original=True)
+        self.last_plots = plots
+        widget = self.query_one("#plot-original", TextBlock)
+        widget.show(True)
+        widget.set_height(rows)
+        widget.update(self.plot_text(plots.plots[0]))
+        for name in ("cleaned", "removed"):
+            self.query_one(f"#plot-{name}", TextBlock).show(False)
+        self.query_one("#flag-strip", TextBlock).update("")
+        line = Text(no_wrap=True, overflow="ellipsis")
+        line.append(format_window(plots.start_s, plots.end_s), style="bold")
+        line.append(f" of {format_duration(traces.duration_s)}  ")
+        line.append("no cleaned run yet: the original is shown; r cleans it now ('tracevet clean' does the queue)",
+                    style="bold")
+        self.query_one("#window-line", TextBlock).update(line)
+        self.query_one("#panel-tabs", Static).update(Text("no run: nothing assessed yet", style="dim"))
+        self.query_one("#panel-body", Static).update(
+            info_text.record_line(self.record_id, self.summary.source_name if self.summary else "", self.original)
+        )
 
     @work(thread=True, exclusive=True, group="pyramids")
     def build_pyramids(self, run, channel: int) -> None:
@@ -350,14 +456,14 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
             parts.append((5, inert_text(info_text.run_label(run.info, self.runs, self.current_run_id), 40)))
         if rec is not None:
             parts.append((6, Text.assemble(inert_text(rec.kind, 6), f" {rec.fs:g} Hz")))
-        widget = self.query_one("#record-title", Static)
+        widget = self.query_one("#record-title", TextBlock)
         width = (widget.content_size.width or self.size.width - 2) if self.is_mounted else 78
         widget.update(info_text.fit_by_priority(parts, max(width, 20)))
 
     def update_decision_line(self) -> None:
         """The record's last decision (who, what, when, note), or that there is none."""
         last = self.summary.last if self.summary is not None else None
-        self.query_one("#decision-line", Static).update(queue_view.decision_text(last))
+        self.query_one("#decision-line", TextBlock).update(queue_view.decision_text(last))
 
     def plot_geometry(self) -> tuple[int, int]:
         """Width and total rows available to the plot stack (the flag strip takes one row)."""
@@ -373,72 +479,95 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         span = min(max(self.span_s, MIN_SPAN_S), traces.duration_s)
         self.set_reactive(RecordScreen.span_s, span)  # clamped quietly: this is the redraw already
         self.set_reactive(RecordScreen.start_s, min(max(self.start_s, 0.0), max(traces.duration_s - span, 0.0)))
+        key = (run.run_id, self.channel, self.start_s, self.span_s, width, heights, self.app.colour)
+        if key == self._traces_key:
+            return  # nothing on the plots changed (a panel, the title or a key that moved nothing)
         regions = queue_view.flagged_regions(run, self.channel)
         plots = render_trace_plots(traces, self.start_s, self.span_s, width, heights, self.app.colour, regions)
+        self._traces_key = key
         self.last_plots = plots
         for plot, height in zip(plots.plots, heights):
-            widget = self.query_one(f"#plot-{plot.name}", Static)
-            widget.display = True
-            widget.styles.height = height
+            widget = self.query_one(f"#plot-{plot.name}", TextBlock)
+            widget.show(True)
+            widget.set_height(height)
             widget.update(self.plot_text(plot))
-        self.query_one("#flag-strip", Static).update(self.flag_strip_text(plots.flag_strip))
+        self.query_one("#flag-strip", TextBlock).update(self.flag_strip_text(plots.flag_strip))
         units = inert_text((self.original.units if self.original is not None else None) or "units?", 8)
         removed = plots.plots[2]
         line = Text(no_wrap=True, overflow="ellipsis")
         span = plots.end_s - plots.start_s
-        line.append(f"{format_clock(plots.start_s, span)}-{format_clock(plots.end_s, span)}", style="bold")
+        line.append(format_window(plots.start_s, plots.end_s), style="bold")
         line.append(f" of {format_duration(traces.duration_s)}")
         line.append("  removed ", style="dim")
         line.append(f"{format_value(removed.y_low)}..{format_value(removed.y_high)} ", style="bold")
         line.append_text(units)
         line.append(f" = {plots.removed_ratio * 100:.0f}% of original p-p", style="bold")
-        self.query_one("#window-line", Static).update(line)
+        self.query_one("#window-line", TextBlock).update(line)
 
     def draw_beats(self, run) -> None:
-        """Averaged beat of original and cleaned overlaid, and their difference."""
+        """Averaged beat (whole record, or the flagged stretch chosen with B) of original and cleaned
+        overlaid, their difference, and the J point and ST reading point marked."""
+        rec = self.original
+        if rec is None:
+            return
         width, rows = self.plot_geometry()
-        templates = queue_view.beat_templates(run.assessment, self.channel)
         for name in PLOT_NAMES:
-            self.query_one(f"#plot-{name}", Static).display = name != "removed"
-        self.query_one("#flag-strip", Static).update("")
+            self.query_one(f"#plot-{name}", TextBlock).show(name != "removed")
+        self.query_one("#flag-strip", TextBlock).update("")
+        scope = self.beat_scope
+        if scope is None:
+            found = queue_view.beat_templates(run.assessment, self.channel)
+            count = queue_view.beat_count(run.assessment, self.channel)
+            templates = found
+        else:
+            found = queue_view.stretch_templates(run, rec, self.channel, *scope)
+            templates = found[:3] if found is not None else None
+            count = found[3] if found is not None else 0
         if templates is None:
-            self.query_one("#plot-original", Static).update(Text("no beats detected in this channel", style="dim"))
-            self.query_one("#plot-cleaned", Static).update("")
+            where = "in this channel" if scope is None else f"in {format_stretch(*scope, rec.duration_s)}"
+            self.query_one("#plot-original", TextBlock).update(Text(f"no measured beats {where}", style="dim"))
+            self.query_one("#plot-cleaned", TextBlock).update("")
+            self._traces_key = None
             return
         top = max(rows * 2 // 3, 3)
         heights = (top, rows + 1 - top)
         time_s, original_beat, cleaned_beat = templates
-        overlay, difference = render_beat_overlay(time_s, original_beat, cleaned_beat, width, heights, self.app.colour)
+        rr_s = queue_view.median_rr_s(run.assessment, self.channel, rec.fs)
+        marks = queue_view.fiducial_marks(time_s, original_beat, rr_s, rec.fs)
+        overlay, difference = render_beat_overlay(
+            time_s, original_beat, cleaned_beat, width, heights, self.app.colour,
+            marks or (), ("J", "ST") if marks else (),
+        )
         for widget_id, plot, height in (("original", overlay, heights[0]), ("cleaned", difference, heights[1])):
-            widget = self.query_one(f"#plot-{widget_id}", Static)
-            widget.styles.height = height
+            widget = self.query_one(f"#plot-{widget_id}", TextBlock)
+            widget.set_height(height)
             widget.update(self.plot_text(plot))
-        units = inert_text((self.original.units if self.original is not None else None) or "units?", 8)
+        self._traces_key = None
+        units = inert_text(rec.units or "units?", 8)
         line = Text(no_wrap=True, overflow="ellipsis")
-        line.append(f"beat avg ({queue_view.beat_count(run.assessment, self.channel)} R) ", style="bold")
+        what = "beat avg" if scope is None else f"stretch {format_stretch(*scope, rec.duration_s)} avg"
+        line.append(f"{what} ({count} beats) ", style="bold")
         line.append("orig ", style="dim")
-        line.append("━━", style="rgb(230,159,0)")
+        line.append("━━", style=self.app.palette.trace_style("original"))
         line.append(" clean ", style="dim")
-        line.append("━━" if self.app.colour else "••", style="rgb(86,180,233)")
+        line.append("━━" if self.app.colour else "••", style=self.app.palette.trace_style("cleaned"))
         line.append(f" {format_value(overlay.y_low)}..{format_value(overlay.y_high)} ")
         line.append_text(units)
         line.append("  o-c ", style="dim")
         line.append(f"{format_value(difference.y_low)}..{format_value(difference.y_high)} ", style="bold")
         line.append_text(units)
-        self.query_one("#window-line", Static).update(line)
+        if marks:
+            line.append(f"  J {marks[0] * 1000:+.0f} ms, ST J+{(marks[1] - marks[0]) * 1000:.0f}", style="dim")
+        self.query_one("#window-line", TextBlock).update(line)
 
     def plot_text(self, plot) -> Text:
-        """plotext output as inert Text, with the plot's name written into its label column.
-
-        The ANSI codes come from plotext drawing our own numbers, never from
-        user data, so converting them to styles is safe.
-        """
-        lines = [Text.from_ansi(line, no_wrap=True) for line in plot.text.split("\n")]
+        """The plot's rows as one Text, with the plot's name written into its label column."""
+        lines = list(plot.lines)
         label = PLOT_LABELS.get(plot.name, plot.name)
         if len(lines) >= 3:
             row = len(lines) // 2 if plot.name != "removed" else 1
-            tail = lines[row][CANVAS_OFFSET:]
-            lines[row] = Text(label.rjust(CANVAS_OFFSET - 1)[: CANVAS_OFFSET - 1] + " ", style="bold") + tail
+            name = Text(label.rjust(CANVAS_OFFSET - 1)[: CANVAS_OFFSET - 1] + " ", style="bold")
+            lines[row] = name + lines[row][CANVAS_OFFSET:]
         return Text("\n", no_wrap=True).join(lines)
 
     def flag_strip_text(self, strip) -> Text:
@@ -453,25 +582,35 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         return text
 
     def update_panel(self) -> None:
-        """Tabs and body of the lower panel."""
+        """Tabs and body of the lower panel (rebuilt only when what it shows changed)."""
         run = self.shown_run
-        if run is None:
+        rec = self.original
+        if run is None or rec is None:
             return
         previous = self.loaded.get(self.previous_run_id) if self.previous_run_id else None
         if self.panel == "compare" and previous is None:
             self.set_reactive(RecordScreen.panel, "flags")
+        content_key = (self.panel, self.shown_run_id, self.previous_run_id, self.channel, self.details)
+        if content_key == self._panel_content_key:
+            return
+        self._panel_content_key = content_key
         self.query_one("#panel-tabs", Static).update(info_text.panel_tabs(self.panel, previous is not None))
+        name = queue_view.channel_name(run.assessment, self.channel) or rec.channels[self.channel]
         if self.panel == "flags":
-            body = info_text.flags_panel(run.assessment)
+            body = info_text.flags_panel(run.assessment, name, self.details, rec.duration_s)
         elif self.panel == "metrics":
-            body = info_text.metrics_panel(run.assessment)
+            body = info_text.metrics_panel(run.assessment, name, rec.n_channels > 1, rec.units)
         elif self.panel == "run":
             source = self.summary.source_name if self.summary is not None else ""
-            body = info_text.record_line(self.record_id, source, self.original)
+            body = info_text.record_line(self.record_id, source, rec)
             body.append("\n")
             body.append_text(info_text.run_panel(run.info, self.runs, self.current_run_id))
         else:
-            body = info_text.compare_panel(previous, run)
+            # always the older run on the left, whichever of the two is shown (v does not flip it)
+            order = [str(r.run_id) for r in self.runs]
+            pair = [r for r in (previous, run) if r is not None]
+            older, newer = sorted(pair, key=lambda r: order.index(r.run_id) if r.run_id in order else 0)
+            body = info_text.compare_panel(older, newer, shown_id=run.run_id)
         self.query_one("#panel-body", Static).update(body)
         shown_key = (self.panel, self.shown_run_id, self.previous_run_id)
         if shown_key != self._panel_key:
@@ -504,22 +643,26 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
         if run is None:
             return
         regions = queue_view.flagged_regions(run, self.channel)
-        centre = self.start_s + self.span_s / 2
-        target = regions.next_start(centre, backwards)
-        if target is None:
+        reference = self.start_s + stretch_lead_s(self.span_s)  # where the stretch in view begins
+        index = regions.next_index(reference, backwards)
+        if index is None:
             self.notify(
-                "no further flagged region in this channel" if len(regions) else "no flagged regions in this channel"
+                "no further flagged stretch in this channel" if len(regions) else "no flagged stretches in this channel"
             )
             return
+        start, end = float(regions.start_s[index]), float(regions.end_s[index])
+        duration = self.original.duration_s if self.original is not None else end
+        span, window_start = stretch_window(start, end, duration)
         self.view = "traces"
-        self.start_s = target - self.span_s / 2
+        self.span_s = span
+        self.start_s = window_start
 
     def action_next_flag(self) -> None:
-        """Centre the window on the next flagged beat or region."""
+        """Show the next flagged stretch, zoomed so the damage is visible."""
         self._jump_flag(False)
 
     def action_previous_flag(self) -> None:
-        """Centre the window on the previous flagged beat or region."""
+        """Show the previous flagged stretch, zoomed so the damage is visible."""
         self._jump_flag(True)
 
     def action_next_channel(self) -> None:
@@ -528,8 +671,28 @@ class RecordScreen(DecisionActions, SuggestionActions, Screen):
             self.channel = (self.channel + 1) % self.original.n_channels
 
     def action_toggle_beats(self) -> None:
-        """Switch between the three traces and the averaged-beat overlay."""
+        """Switch between the three traces and the averaged beat of the whole record."""
+        self.beat_scope = None
         self.view = "beats" if self.view == "traces" else "traces"
+
+    def action_stretch_beats(self) -> None:
+        """Averaged beat of the flagged stretch in view (its beats only), instead of the whole record."""
+        run = self.shown_run
+        if run is None:
+            return
+        regions = queue_view.flagged_regions(run, self.channel)
+        found = regions.overlapping(self.start_s, self.start_s + self.span_s)
+        if found is None:
+            self.notify("no flagged stretch in view: ] goes to the next one")
+            return
+        self.beat_scope = (float(regions.start_s[found]), float(regions.end_s[found]))
+        self.view = "beats"
+
+    def action_toggle_details(self) -> None:
+        """Flags panel: one line per flag, or each with its message, source and every stretch."""
+        self.details = not self.details
+        if self.panel != "flags":
+            self.panel = "flags"
 
     def action_next_panel(self) -> None:
         """Cycle the lower panel: flags, metrics, run settings, comparison."""

@@ -26,10 +26,12 @@ class RerunCancelled(Exception):
     """Raised from the progress callback to stop a re-run the reviewer cancelled."""
 
 
-class RerunScreen(ModalScreen[str | None]):
+class RerunScreen(ModalScreen[object]):
     """Settings pre-filled from the shown run; ctrl+r runs; esc cancels a run or closes.
 
-    Dismisses with the new run's id, or None.
+    Dismisses with the new run's id, or None. With ``send_back`` nothing is
+    run: ctrl+r dismisses with the chosen :class:`CleaningSettings`, to be
+    attached to a send-back decision.
     """
 
     if TYPE_CHECKING:
@@ -45,27 +47,37 @@ class RerunScreen(ModalScreen[str | None]):
         "cancel": "stop a running re-run (nothing is kept), or close the form",
     }
 
-    def __init__(self, record_id: str, settings: dict, source_run: str = "") -> None:
+    def __init__(self, record_id: str, settings: dict, source_run: str = "", send_back: bool = False) -> None:
         super().__init__()
         self.record_id = record_id
         self.source_run = source_run
+        self.send_back = send_back
+        self.source_has_settings = bool(settings)
         merged = DEFAULT_SETTINGS.to_dict()
         merged.update({k: v for k, v in (settings or {}).items() if k in merged})
         self.initial = merged
+        self.source_digest = CleaningSettings.from_dict(merged, source="run").digest() if settings else None
         self.cancel_requested = threading.Event()
         self.running = False
 
     def compose(self) -> ComposeResult:
         """Title, a two-column grid of settings, the help line, progress and keys."""
         with Vertical(id="rerun-box"):
-            title = Text.assemble(("RE-RUN ", "bold reverse"), " ", inert_text(self.record_id, 40))
-            if self.source_run:
+            word = "SEND BACK WITH SETTINGS " if self.send_back else "RE-RUN "
+            title = Text.assemble((word, "bold reverse"), " ", inert_text(self.record_id, 40))
+            if self.source_run and self.source_has_settings:
                 title.append("  settings start from ", style="dim")
                 title.append_text(inert_text(self.source_run, 20))
+            elif self.source_run:
+                title.append("  settings start from tracevet's defaults (", style="dim")
+                title.append_text(inert_text(self.source_run, 20, style="dim"))
+                title.append(" was cleaned outside tracevet)", style="dim")
+            else:
+                title.append("  settings start from tracevet's defaults", style="dim")
             yield Static(title, id="rerun-title")
             with Grid(id="rerun-grid"):
                 for name, value in self.initial.items():
-                    yield Static(Text(name, style="dim"), classes="rerun-label")
+                    yield Static(Text(name, style="dim"), classes="rerun-label", id=f"label-{name}")
                     if name in SETTING_CHOICES:
                         options = [(str(choice), str(choice)) for choice in SETTING_CHOICES[name]]
                         current = str(value) if str(value) in SETTING_CHOICES[name] else options[0][1]
@@ -75,14 +87,42 @@ class RerunScreen(ModalScreen[str | None]):
             yield Static(id="rerun-help")
             yield ProgressBar(total=1.0, show_eta=False, id="rerun-progress")
             yield Static(id="rerun-status")
+            run_word = "attach to the send-back" if self.send_back else "run"
             yield Static(
-                Text("tab/shift+tab: field  enter: open list  ctrl+r or F5: run  esc: cancel", style="dim"),
+                Text(f"tab/shift+tab: field  enter: open list  ctrl+r or F5: {run_word}  esc: cancel  * changed",
+                     style="dim"),
                 id="rerun-keys",
             )
 
     def on_mount(self) -> None:
-        """Focus the first field."""
+        """Focus the first field; the progress bar shows only once a run has started."""
+        self.query_one(ProgressBar).display = False
         self.query_one("#rerun-grid").children[1].focus()
+
+    def field_value(self, name: str) -> object:
+        """The value in the form's field of setting ``name``."""
+        widget = self.query_one(f"#set-{name}")
+        assert isinstance(widget, (Input, Select))  # the form's fields, made in compose
+        return widget.value
+
+    def changed_fields(self) -> list[str]:
+        """Names of the settings whose field differs from the value the form started with."""
+        return [name for name, value in self.initial.items() if str(self.field_value(name)) != str(value)]
+
+    def mark_changed(self) -> None:
+        """Mark changed fields with ``*`` (and bold), so the reviewer sees what the new run changes."""
+        changed = set(self.changed_fields())
+        for name in self.initial:
+            label = Text(("* " if name in changed else "") + name, style="bold" if name in changed else "dim")
+            self.query_one(f"#label-{name}", Static).update(label)
+
+    def on_select_changed(self, event: Select.Changed) -> None:
+        """A choice changed: mark it."""
+        self.mark_changed()
+
+    def on_input_changed(self, event: Input.Changed) -> None:
+        """A typed value changed: mark it."""
+        self.mark_changed()
 
     def on_descendant_focus(self, event) -> None:
         """Explain the focused setting."""
@@ -113,7 +153,17 @@ class RerunScreen(ModalScreen[str | None]):
         except TracevetError as exc:
             self.show_status(f"not started: {exc.one_line()}", "bold reverse")
             return
+        if self.send_back:
+            self.dismiss(settings)
+            return
+        if self.source_digest is not None and settings.digest() == self.source_digest:
+            self.show_status(
+                f"not started: same settings as {self.source_run}; change a setting first",
+                "bold reverse",
+            )
+            return
         self.running = True
+        self.query_one(ProgressBar).display = True
         self.cancel_requested.clear()
         self.query_one("#rerun-grid").disabled = True
         self.show_status("cleaning... esc cancels", "bold")
@@ -154,6 +204,7 @@ class RerunScreen(ModalScreen[str | None]):
         self.running = False
         self.query_one("#rerun-grid").disabled = False
         self.query_one(ProgressBar).update(progress=0)
+        self.query_one(ProgressBar).display = False
         self.show_status(message, "bold")
 
     def action_cancel(self) -> None:

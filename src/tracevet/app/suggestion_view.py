@@ -148,6 +148,7 @@ def _rerun_screen_class():
 
         def on_mount(self) -> None:
             """Say that a suggestion is ready and how to take it."""
+            super().on_mount()  # the form's own start: focus, no progress bar before running
             best = self.suggestion.best
             line = Text.assemble(
                 ("suggestion ready: ", "bold"),

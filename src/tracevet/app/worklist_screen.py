@@ -12,11 +12,36 @@ from rich.text import Text
 
 from tracevet.app import queue_view
 from tracevet.app.display import format_duration, inert_text, severity_text
+from tracevet.workqueue import REVIEW_STATES, RecordSummary
 
 if TYPE_CHECKING:
     from tracevet.app.app import ReviewApp
 
 SORTS = ("flagged first", "id", "duration", "state")
+COLUMNS = (
+    ("id", "record"),
+    ("state", "state"),
+    ("duration", "length"),
+    ("channels", "ch"),
+    ("flags", "flags"),
+    ("holder", "holder"),
+    ("last", "last decision"),
+)
+# Column widths at 80 columns; wider terminals give the extra room to the record id, holder and last decision.
+BASE_WIDTHS = {"id": 20, "state": 9, "duration": 7, "channels": 2, "flags": 9, "holder": 8, "last": 11}
+
+
+def column_widths(total: int) -> dict[str, int]:
+    """Widths of the worklist columns for a terminal ``total`` columns wide (cell padding included)."""
+    widths = dict(BASE_WIDTHS)
+    spare = max(0, total - 80)
+    # each column has one cell of padding on both sides; the table's own scrollbar takes two
+    widths["id"] += min(spare // 2, 44)  # ids are at most 64 characters
+    spare -= widths["id"] - BASE_WIDTHS["id"]
+    widths["last"] += min(spare // 2, 24)
+    spare -= widths["last"] - BASE_WIDTHS["last"]
+    widths["holder"] += min(spare, 16)
+    return widths
 FILTERS = ("all", "to review", "flagged", "decided")
 AUTO_REFRESH_SECONDS = 15.0
 
@@ -34,6 +59,8 @@ class WorklistScreen(Screen):
         "cycle_sort": "sort: flagged first, id, duration, state",
         "cycle_filter": "filter: all, to review, flagged, decided",
         "refresh": "re-read the queue",
+        "cursor_first": "first row",
+        "cursor_last": "last row",
         "quit_app": "quit (releases any claim)",
     }
     BINDINGS = [
@@ -42,6 +69,8 @@ class WorklistScreen(Screen):
         Binding("o", "cycle_sort", "Sort"),
         Binding("f", "cycle_filter", "Filter"),
         Binding("u", "refresh", "Update"),
+        Binding("home", "cursor_first", "First", show=False, priority=True),
+        Binding("end", "cursor_last", "Last", show=False, priority=True),
         Binding("q", "quit_app", "Quit"),
     ]
 
@@ -49,7 +78,8 @@ class WorklistScreen(Screen):
         super().__init__()
         self.sort_index = 0
         self.filter_index = 0
-        self.records: list = []
+        self.records: list[RecordSummary] = []
+        self._widths: dict[str, int] | None = None
 
     def compose(self) -> ComposeResult:
         """Status line, the table, the key footer."""
@@ -59,17 +89,14 @@ class WorklistScreen(Screen):
         yield Footer()
 
     def on_mount(self) -> None:
-        """Set the columns and fill the table."""
-        table = self.query_one(DataTable)
-        table.add_column("record", key="id", width=20)
-        table.add_column("state", key="state", width=10)
-        table.add_column("length", key="duration", width=7)
-        table.add_column("ch", key="channels", width=2)
-        table.add_column("flags", key="flags", width=9)
-        table.add_column("holder", key="holder", width=9)
-        table.add_column("last", key="last", width=8)
+        """Fill the table (columns sized to the width) and refresh it every few seconds."""
         self.action_refresh()
         self.set_interval(AUTO_REFRESH_SECONDS, self.poll_queue)
+
+    def on_resize(self) -> None:
+        """New width: columns take it."""
+        if self._widths != column_widths(self.size.width):
+            self.action_refresh()
 
     def poll_queue(self) -> None:
         """Pick up other reviewers' claims and decisions while the worklist is on screen."""
@@ -77,8 +104,27 @@ class WorklistScreen(Screen):
             self.action_refresh()
 
     def on_screen_resume(self) -> None:
-        """Coming back from a record: show what changed."""
+        """Coming back from a record: show what changed; after a decision, the next record to review."""
         self.action_refresh()
+        decided, self.app.last_decided = self.app.last_decided, None
+        if decided is not None:
+            self.move_after(decided)
+
+    def move_after(self, record_id: str) -> None:
+        """Put the cursor on the first record after ``record_id`` (in table order) that needs review."""
+        rows = self.visible_records()
+        ids = [r.id for r in rows]
+        if record_id not in ids:
+            return
+        start = ids.index(record_id)
+        table = self.query_one(DataTable)
+        for offset in range(1, len(rows) + 1):
+            candidate = rows[(start + offset) % len(rows)]
+            held_by_other = candidate.holder_live and queue_view.holder_name(candidate.holder) != self.app.reviewer
+            if candidate.state in REVIEW_STATES and not held_by_other:
+                table.move_cursor(row=(start + offset) % len(rows))
+                return
+        table.move_cursor(row=start)
 
     # -- data ---------------------------------------------------------
     def visible_records(self) -> list:
@@ -93,16 +139,23 @@ class WorklistScreen(Screen):
         selected = self.selected_id()
         self.records = self.app.queue.records()
         rows = self.visible_records()
-        table.clear()
+        widths = column_widths(self.size.width)
+        if widths != self._widths:
+            table.clear(columns=True)
+            for key, label in COLUMNS:
+                table.add_column(label, key=key, width=widths[key])
+            self._widths = widths
+        else:
+            table.clear()
         for record in rows:
             table.add_row(
-                inert_text(record.id, 20),
-                inert_text(record.state, 10),
+                inert_text(record.id, widths["id"]),
+                inert_text(record.state, widths["state"]),
                 Text(format_duration(record.duration_s)),
                 Text(str(record.n_channels)),
                 severity_text(record.worst_severity, record.n_flags),
-                inert_text(queue_view.holder_label(record), 9),
-                inert_text(queue_view.last_decision_cell(record), 8),
+                inert_text(queue_view.holder_label(record), widths["holder"]),
+                inert_text(queue_view.last_decision_cell(record), widths["last"]),
                 key=record.id,
             )
         ids = [r.id for r in rows]
@@ -143,6 +196,15 @@ class WorklistScreen(Screen):
         return row_key.value
 
     # -- actions ------------------------------------------------------
+    def action_cursor_first(self) -> None:
+        """Cursor to the first row."""
+        self.query_one(DataTable).move_cursor(row=0)
+
+    def action_cursor_last(self) -> None:
+        """Cursor to the last row."""
+        table = self.query_one(DataTable)
+        table.move_cursor(row=max(table.row_count - 1, 0))
+
     def action_cycle_sort(self) -> None:
         """Next sort order."""
         self.sort_index = (self.sort_index + 1) % len(SORTS)

@@ -33,7 +33,7 @@ SOURCE_ST = (
     "a diagnostic criterion; level read at J+80 ms (J+60 ms above 100 bpm), Long-Term ST Database convention"
 )
 SOURCE_AMPLITUDE = (
-    "common practice; of the order of the about 10 % amplitude tolerance of the IEC 60601-2-25 "
+    "common practice; of the order of the 10 % amplitude tolerance of the IEC 60601-2-25 "
     "short-pulse response test (from memory)"
 )
 SOURCE_QRS = (

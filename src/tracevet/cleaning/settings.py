@@ -56,6 +56,26 @@ _CUTOFF_MAX_HZ = 5.0
 _HARMONICS_MAX = 10
 
 
+def wavelet_families_text() -> str:
+    """The discrete wavelets as families with their orders, e.g. ``db1-db38``, instead of 100-odd names."""
+    families: dict[str, list[str]] = {}
+    for name in WAVELETS:
+        families.setdefault(pywt.Wavelet(name).short_family_name, []).append(name)
+    parts = []
+    for short, names in sorted(families.items()):
+        if len(names) == 1 and names[0] == short:
+            parts.append(short)
+            continue
+        orders = [n[len(short):] for n in names]
+        if all(o.isdigit() for o in orders):
+            numbers = sorted(int(o) for o in orders)
+            parts.append(f"{short}{numbers[0]}-{short}{numbers[-1]}")
+        else:
+            shown = f"{short}N.M ({', '.join(orders[:3])}...)" if len(orders) > 3 else f"{short}{'/'.join(orders)}"
+            parts.append(shown)
+    return "known: family + order, " + "; ".join(parts) + "; e.g. sym4, db4, coif2 (pywt.wavelist('discrete'))"
+
+
 def _choices(field_name: str) -> str:
     return ", ".join(str(c) for c in sorted(SETTING_CHOICES[field_name]))
 
@@ -167,6 +187,8 @@ def _validate(s: CleaningSettings, source: str) -> None:
     for name in SETTING_CHOICES:
         value = getattr(s, name)
         if not isinstance(value, str) or value not in SETTING_CHOICES[name]:
+            if name == "wavelet":
+                raise SettingsError(source, f"unknown wavelet {str(value)[:20]!r} ({wavelet_families_text()})")
             raise SettingsError(source, f"unknown {name} {value!r} (choices: {_choices(name)})")
     level = s.level
     if isinstance(level, bool) or not (level == "auto" or isinstance(level, int)):

@@ -11,48 +11,24 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 from pathlib import Path
 
 import yaml
 
 from tracevet.assessment.limits import FLAG_IDS, limits_from_mapping
+from tracevet.assessment.metric_words import METRIC_ROWS, channel_metrics, format_metric
 from tracevet.caution import CAUTION
 from tracevet.errors import InputError
 from tracevet.recording import KINDS, SUPPORTED_READ, Recording, read_recording
+from tracevet.recording.model import units_option
 from tracevet.recording.atomic import write_text_atomic
 from tracevet.safe_yaml import load_yaml
 from tracevet.text import inert
 
 
-# Metrics shown in the readable report, with labels and the unit kind.
-REPORT_ROWS = (
-    ("beat_count", "beats detected", "count"),
-    ("dominant_beat_count", "beats in the dominant shape", "count"),
-    ("other_beat_count", "beats of other shape", "count"),
-    ("heart_rate_bpm", "heart rate", "bpm"),
-    ("r_amplitude", "R amplitude (original)", "amp"),
-    ("template_noise", "template noise", "amp"),
-    ("prd_percent", "PRD, beat template", "%"),
-    ("prdn_percent", "PRDN, beat template", "%"),
-    ("rmse", "RMSE, beat template", "amp"),
-    ("correlation", "correlation, beat template", "ratio"),
-    ("r_amplitude_ratio", "R amplitude ratio", "ratio"),
-    ("r_timing_shift_ms", "R timing shift", "signed ms"),
-    ("qrs_width_ms", "QRS width (original)", "ms"),
-    ("qrs_width_change_ms", "QRS width change", "signed ms"),
-    ("st_change", "ST level change", "signed amp"),
-    ("p_amplitude_ratio", "P amplitude ratio", "ratio"),
-    ("t_amplitude_ratio", "T amplitude ratio", "ratio"),
-    ("ringing_rms", "ringing beside QRS (r.m.s.)", "amp"),
-    ("removed_beat_fraction", "beat shape in removed part", "ratio"),
-    ("beat_shape_change_percent", "beat shape change", "%"),
-    ("clipped_runs", "clipped runs", "count"),
-    ("edge_deviation", "edge excess", "amp"),
-    ("signal_prdn_percent", "PRDN, whole trace", "%"),
-    ("removed_rms", "removed part (r.m.s.)", "amp"),
-)
+# Metrics shown in the readable report: labels and units have one owner (assessment.metric_words).
+REPORT_ROWS = METRIC_ROWS
 
 
 def load_limits_file(path: str):
@@ -80,22 +56,7 @@ def load_limits_file(path: str):
 
 
 def _format(value, unit: str, units: str | None) -> str:
-    if value is None or (isinstance(value, float) and not math.isfinite(value)):
-        return "n/a"
-    if unit == "count":
-        return f"{int(round(value))}"
-    if unit == "bpm":
-        return f"{value:.0f} bpm"
-    if unit == "%":
-        return f"{value:.1f} %"
-    if unit == "ms":
-        return f"{value:.1f} ms"
-    if unit == "signed ms":
-        return f"{value:+.1f} ms"
-    if unit == "ratio":
-        return f"{value:.3f}"
-    unit_text = inert(units) if units else "(record units)"
-    return f"{value:+.4g} {unit_text}" if unit == "signed amp" else f"{value:.4g} {unit_text}"
+    return format_metric(value, unit, inert(units) if units else None)
 
 
 def report_text(result, original: Recording, args: argparse.Namespace) -> str:
@@ -112,9 +73,9 @@ def report_text(result, original: Recording, args: argparse.Namespace) -> str:
     for name in original.channels:
         lines.append("")
         lines.append(f"channel {inert(name)}")
+        values = channel_metrics(result.metrics, name, multi)
         for key, label, unit in REPORT_ROWS:
-            value = result.metrics.get(f"{key}@{name}" if multi else key)
-            lines.append(f"  {label:<30s} {_format(value, unit, units)}")
+            lines.append(f"  {label:<32s} {_format(values.get(key), unit, units)}")
     lines.append("")
     if result.flags:
         lines.append(f"flags ({len(result.flags)}):")
@@ -240,7 +201,9 @@ def register(subparsers) -> argparse.ArgumentParser:
         help="sampling rate in Hz (needed for .npy; must agree with the files otherwise)",
     )
     parser.add_argument("--kind", choices=KINDS, help="ecg, mcg or other (overrides the files)")
-    parser.add_argument("--units", metavar="U", help="units of the samples: mV, uV, pT, fT... (overrides the files)")
+    parser.add_argument(
+        "--units", metavar="U", type=units_option, help="units of the samples: mV, uV, pT, fT... (overrides the files)"
+    )
     parser.add_argument("--limits", metavar="FILE", help="YAML file with flag limits (a flag_limits: mapping)")
     parser.add_argument("--json", action="store_true", help="print exactly one JSON object: metrics and flags")
     parser.add_argument("--save", metavar="FOLDER", help="also write assessment.json and beats.npz into FOLDER")

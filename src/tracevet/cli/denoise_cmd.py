@@ -32,6 +32,7 @@ from tracevet.cleaning import (
 from tracevet.cli import assess_cmd
 from tracevet.errors import InputError
 from tracevet.recording import KINDS, Recording, SUPPORTED_READ, SUPPORTED_WRITE, read_recording, write_recording
+from tracevet.recording.model import units_option
 from tracevet.text import inert
 
 
@@ -92,7 +93,9 @@ def add_input_arguments(parser: argparse.ArgumentParser) -> None:
         help="sampling rate in Hz (needed for .npy; must agree with the file otherwise)",
     )
     parser.add_argument("--kind", choices=KINDS, help="what the recording is: ecg, mcg or other (overrides the file)")
-    parser.add_argument("--units", metavar="U", help="units of the samples, e.g. mV, uV, pT, fT (overrides the file)")
+    parser.add_argument(
+        "--units", metavar="U", type=units_option, help="units of the samples, e.g. mV, uV, pT, fT (overrides the file)"
+    )
 
 
 def add_settings_arguments(parser: argparse.ArgumentParser) -> None:

@@ -12,6 +12,7 @@ import sys
 from collections import Counter
 
 from tracevet.cli.defaults import QUEUE_HELP, queue_path
+from tracevet.recording.model import units_option
 from tracevet.text import inert
 
 def register(subparsers) -> None:
@@ -30,7 +31,7 @@ def register(subparsers) -> None:
         help="cleaning setting for the queue (repeatable)",
     )
     p.add_argument("--kind", default="ecg", help="kind for files that do not say: ecg, mcg, other (default ecg)")
-    p.add_argument("--units", default="mV", help="units for files that do not say (default mV)")
+    p.add_argument("--units", default="mV", type=units_option, help="units for files that do not say (default mV)")
     p.add_argument(
         "--claim-idle-minutes",
         type=float,
@@ -53,7 +54,7 @@ def register(subparsers) -> None:
     p.add_argument("--pair", nargs=2, metavar=("ORIGINAL", "CLEANED"), help="add one record cleaned outside tracevet")
     p.add_argument("--fs", type=float, help="sampling rate in Hz (needed for .npy)")
     p.add_argument("--kind", help="ecg, mcg or other (default: from the file, else the queue's)")
-    p.add_argument("--units", help="units (default: from the file, else the queue's)")
+    p.add_argument("--units", type=units_option, help="units (default: from the file, else the queue's)")
     p.add_argument("--reviewer", help="who adds them (default $TRACEVET_REVIEWER or login name)")
     p.add_argument("--allow-duplicates", action="store_true", help="add files whose bytes are already in the queue")
     p.set_defaults(func=cmd_add)

@@ -37,6 +37,22 @@ UNIT_TO_MV = {"V": 1e3, "mV": 1.0, "uV": 1e-3, "nV": 1e-6}
 UNIT_TO_PT = {"T": 1e12, "nT": 1e3, "pT": 1.0, "fT": 1e-3}
 
 
+KNOWN_UNITS = tuple(dict.fromkeys(_UNIT_ALIASES.values()))
+
+
+def units_option(text: str) -> str:
+    """Units typed on the command line (``--units``): a known unit, or InputError listing them.
+
+    Files may carry other unit strings (kept as given, judged with relative
+    limits); a unit a person types that tracevet does not know is refused,
+    so a typo such as ``volts`` does not silently turn absolute limits off.
+    """
+    known = _UNIT_ALIASES.get(str(text).strip().lower())
+    if known is None:
+        raise InputError("--units", f"unknown units {str(text)[:20]!r} (known: {', '.join(KNOWN_UNITS)})")
+    return known
+
+
 def normalise_units(units: str | None, source: str = "units") -> str | None:
     """Return the canonical spelling of ``units`` (``mV``, ``uV``, ``pT``...).
 
