@@ -29,7 +29,7 @@ dimension                 values tried
 ``transform``             swt, dwt
 ========================  =====================================================
 
-At most 3 + 4 + 8 + 2 + 4 + 3 + 2 = 26 settings, fewer after duplicates
+At most 4 + 4 + 8 + 2 + 4 + 3 + 2 = 27 settings, fewer after duplicates
 (each dimension repeats the best so far, evaluated once). The current run's
 settings and the base settings are always evaluated too, so the suggestion
 can be compared with them.
