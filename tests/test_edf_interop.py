@@ -80,6 +80,8 @@ def test_hostile_channel_names_still_give_a_file_pyedflib_accepts(tmp_path):
     assert got["labels"] == ["?[31mred", "Ableitung ?"]
 
 
+# Older pyEDFlib releases (0.1.38 and earlier at least) warn about their own internal use of 'sample_rate'.
+@pytest.mark.filterwarnings("ignore:`sample_rate` is deprecated:DeprecationWarning")
 def test_edf_plus_written_by_pyedflib_is_read_by_tracevet(tmp_path):
     # An EDF+C file with its 'EDF Annotations' signal, written by EDFlib through pyEDFlib:
     # tracevet reads the ordinary signals and skips the annotation signal.

@@ -488,7 +488,7 @@ def assess_group(
         metrics = dict(measures.metrics)
         # Two witnesses: the stretch's templates cross the limit, and the
         # screen reading of the same measure passed its screening level there.
-        seen = witnessed[start:stop].any(axis=0)
+        seen = np.asarray(witnessed[start:stop].any(axis=0))
         flags = [f for f in evaluate(channel, metrics, allowance, limits)
                  if f.id in TEMPLATE_FLAG_IDS and seen[_FLAG_COLUMN[f.id]]]
         start_s = max(0.0, (beats[0] - windows.pre) / fs)
