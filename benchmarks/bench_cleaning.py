@@ -5,8 +5,11 @@ MIT-BIH excerpt in tests/data repeated, plus white noise), prints samples per
 second (best of ``--repeat`` interleaved rounds; 1-minute calls timed 20 at a time) and peak memory (tracemalloc, in a
 separate run, as a multiple of the record's float32 size) of:
 
-- ``default``: the default profile (SWT, hybrid SURE, garrote, 0.05 Hz
-  zero-phase baseline);
+- ``default``: the default profile (SWT, hybrid SURE, garrote, per-level noise,
+  median baseline, mains auto);
+- ``diagnostic``: the built-in conservative profile (the default before issue 10:
+  0.05 Hz zero-phase baseline high-pass, finest-level noise, no notch), for the
+  "at most 1.3 times the old default's time" comparison under the same load;
 - ``engine dwt``: the engine doing the bare DWT job (DWT, universal, soft,
   no baseline), against ``bare dwt``: ``pywt.wavedec``, universal soft
   threshold from the finest-level MAD, ``pywt.waverec``;
@@ -32,7 +35,7 @@ from pathlib import Path
 import numpy as np
 import pywt
 
-from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, clean, resolve_level
+from tracevet.cleaning import DEFAULT_SETTINGS, PROFILES, apply_overrides, clean, resolve_level
 from tracevet.recording import Recording
 
 FS = 360.0
@@ -116,6 +119,7 @@ def main() -> None:
         repeat = 2 if seconds > 36000 else args.repeat
         runs = {
             "default": lambda: clean(rec, DEFAULT_SETTINGS),
+            "diagnostic": lambda: clean(rec, PROFILES["diagnostic"]),
             "engine dwt": lambda: clean(rec, dwt_job),
             "bare dwt": lambda: bare_dwt(x, wavelet, level),
             "engine swt": lambda: clean(rec, swt_job),
@@ -136,6 +140,7 @@ def main() -> None:
         print(f"  ratio engine dwt / bare dwt: {rates['engine dwt'] / rates['bare dwt']:.2f}x (target >= 0.8)")
         print(f"  ratio engine swt / bare swt: {rates['engine swt'] / rates['bare swt']:.2f}x (target >= 1.0)")
         print(f"  ratio default / bare swt:    {rates['default'] / rates['bare swt']:.2f}x")
+        print(f"  time default / diagnostic:   {times['default'] / times['diagnostic']:.2f}x (target <= 1.3)")
 
 
 if __name__ == "__main__":
