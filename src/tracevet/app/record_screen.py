@@ -11,6 +11,7 @@ from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
 from textual.reactive import var
 from textual.screen import Screen
+from textual.strip import Strip
 from textual.widget import Widget
 from textual.widgets import Footer, Static
 
@@ -55,9 +56,11 @@ STRETCH_MAX_SPAN_S = 20.0
 class TextBlock(Widget):
     """A fixed-size block of text whose new content is painted without a new layout.
 
-    ``Static.update`` lays the whole screen out again; the plots, the flag
-    strip and the one-line headers change on every key but never change
-    size by themselves, so they only repaint (part of the redraw speed).
+    ``Static.update`` lays the whole screen out again and re-wraps its text;
+    the plots, the flag strip and the one-line headers change on every key
+    but never change size by themselves, so they only repaint, one
+    ready-made strip of segments per row (Textual's line API): part of the
+    redraw speed.
     """
 
     DEFAULT_CSS = "TextBlock { height: 1; width: 100%; }"
@@ -65,15 +68,28 @@ class TextBlock(Widget):
     def __init__(self, id: str, classes: str | None = None) -> None:  # noqa: A002 - Textual's name
         super().__init__(id=id, classes=classes)
         self._text = Text("")
+        self._strips: list[Strip] = []
 
-    def render(self) -> Text:
-        """The current text."""
+    @property
+    def text(self) -> Text:
+        """The text shown."""
         return self._text
 
     def update(self, text: Text | str = "") -> None:
-        """Show ``text`` (repaint only)."""
+        """Show ``text`` (repaint only): each line becomes one strip of segments, cut at the width."""
         self._text = text if isinstance(text, Text) else Text(str(text))
+        console = self.app.console
+        self._strips = [
+            Strip(list(line.render(console)), line.cell_len) for line in self._text.split("\n", allow_blank=True)
+        ]
         self.refresh()
+
+    def render_line(self, y: int) -> Strip:
+        """Row ``y``: its strip, cut or padded to the widget's width, in the widget's own style."""
+        width = self.size.width
+        if y >= len(self._strips):
+            return Strip.blank(width, self.rich_style)
+        return self._strips[y].crop_extend(0, width, self.rich_style).apply_style(self.rich_style)
 
     def set_height(self, rows: int) -> None:
         """Change the height (this one needs a layout), only when it differs."""
