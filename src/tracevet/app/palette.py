@@ -12,7 +12,7 @@ alone (Okabe & Ito 2008, "Color Universal Design", for the principle).
 
 Without colour (``NO_COLOR``), Textual turns every colour into a grey of the
 same lightness, which would make a red FAIL *dimmer* than plain text; the
-monochrome palette therefore marks FAIL with bold reverse video and warn
+monochrome palette therefore marks FAIL with bold reverse (swapped foreground and background) and warn
 with bold, and draws the cleaned trace of the averaged beat dotted.
 """
 
