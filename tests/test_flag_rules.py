@@ -184,3 +184,36 @@ def test_flag_ids_named_in_the_code_are_rows():
             assert flag_id in FLAG_IDS, f"{path.relative_to(SRC)}: {flag_id!r} is not a row of the flag table"
             named.add(flag_id)
     assert {"no-beats", "baseline-excursion", "beats-missing"} <= named  # the search reads the wiring
+
+
+def _documented_limit(cell: str, unit: str, amplitude: bool) -> tuple[float | None, float | None]:
+    """(absolute, relative) limit from a cell of the docs table, e.g. ``12 %``, ``0.05 mV / 5 % of R``, ``—``."""
+    cell = cell.strip()
+    if cell == "—":
+        return None, None
+    if amplitude:
+        found = re.fullmatch(r"([\d.]+) mV / ([\d.]+) % of R", cell)
+        assert found, cell
+        return float(found.group(1)), float(found.group(2)) / 100.0
+    if cell.startswith("> "):
+        return float(cell[2:]), None
+    number = float(cell.split()[0])
+    return (number / 100.0 if unit == "fraction" else number), None
+
+
+def _same(a: float | None, b: float | None) -> bool:
+    return a is None and b is None or (a is not None and b is not None and abs(a - b) <= 1e-12)
+
+
+def test_the_documented_flag_table_follows_the_rows():
+    # docs/assessment.md "Flags and limits": one line per row, in table order, with the rows' default limits.
+    text = (SRC.parent.parent / "docs" / "assessment.md").read_text(encoding="utf-8")
+    lines = [line for line in text.splitlines() if re.match(r"\| `[a-z-]+` \|", line)]
+    cells = [[c.strip() for c in re.split(r"(?<!\\)\|", line)[1:-1]] for line in lines]
+    assert [c[0].strip("`") for c in cells] == list(FLAG_IDS)
+    for rule, row in zip(RULES, cells):
+        if rule.id == "no-beats":  # documented as "< 2 beats", the count needed, not a grading limit
+            continue
+        for cell, limit, relative in ((row[2], rule.warn, rule.warn_relative), (row[3], rule.fail, rule.fail_relative)):
+            shown = _documented_limit(cell, rule.unit, rule.amplitude)
+            assert _same(shown[0], limit) and _same(shown[1], relative), f"{rule.id}: {cell!r}"
