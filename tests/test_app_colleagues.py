@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-import test_app_review as review
-from test_app_review import record_ready, screen_text, type_text, wait_for
+import app_helpers
+from app_helpers import open_from_worklist, record_ready, screen_text, type_text, wait_for
 
 from tracevet.app import record_screen
 from tracevet.app.app import ReviewApp
@@ -11,8 +11,8 @@ from tracevet.app.record_screen import RecordScreen
 from tracevet.app.worklist_screen import WorklistScreen
 from tracevet.workqueue import Queue
 
-queue_template = review.queue_template  # the shared queue of four real-ECG records (fixtures)
-queue_dir = review.queue_dir
+queue_template = app_helpers.queue_template  # the shared queue of four real-ECG records (fixtures)
+queue_dir = app_helpers.queue_dir
 
 
 def _decisions(queue: Queue, record_id: str) -> list:
@@ -61,9 +61,7 @@ async def test_a_held_record_unlocks_when_its_holder_decides(queue_dir, monkeypa
     queue.claim(record_id, "mira", bind_process=False)
     app = ReviewApp(Queue.open(queue_dir), "jonas", colour=False)
     async with app.run_test(size=(80, 24)) as pilot:
-        await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
-        app.screen.open_record(record_id)
-        await wait_for(pilot, lambda: record_ready(app))
+        await open_from_worklist(pilot, app, record_id)
         assert app.screen.read_only and "READ-ONLY mira" in screen_text(app)
         assert app.screen.check_action("decide", ("accept",)) is None  # shown disabled
         queue.decide(record_id, "reject", "noise", "mira")  # mira decides from the command line

@@ -4,18 +4,17 @@ from __future__ import annotations
 
 import dataclasses
 
-import test_app_review as review
+import app_helpers
 from rich.color import ColorSystem
-from test_app_review import record_ready, screen_text, wait_for
+from app_helpers import open_from_worklist, screen_text, wait_for
 
 from tracevet.app import palette
 from tracevet.app.app import ReviewApp
-from tracevet.app.worklist_screen import WorklistScreen
 from tracevet.assessment import Flag
 from tracevet.workqueue import Queue
 
-queue_template = review.queue_template  # the shared queue of four real-ECG records (fixtures)
-queue_dir = review.queue_dir
+queue_template = app_helpers.queue_template  # the shared queue of four real-ECG records (fixtures)
+queue_dir = app_helpers.queue_dir
 
 BRAILLE = range(0x2801, 0x2900)
 
@@ -48,9 +47,7 @@ async def test_title_at_80_columns_keeps_id_severity_and_state_even_read_only(qu
     queue.claim("dive-c", "a-colleague-with-a-rather-long-name", bind_process=False)
     app = ReviewApp(Queue.open(queue_dir), "mira", colour=True)
     async with app.run_test(size=(80, 24)) as pilot:
-        await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
-        app.screen.open_record("dive-c")
-        await wait_for(pilot, lambda: record_ready(app))
+        await open_from_worklist(pilot, app, "dive-c")
         await pilot.pause(0.05)
         title = screen_text(app).split("\n")[0]
         assert "dive-c" in title and "FAIL" in title and "in-review" in title
@@ -70,9 +67,7 @@ async def test_no_color_marks_fail_with_reverse_bold_not_a_dim_grey(queue_dir, m
     monkeypatch.setenv("NO_COLOR", "1")
     app = ReviewApp(Queue.open(queue_dir), "mira")
     async with app.run_test(size=(80, 24)) as pilot:
-        await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
-        app.screen.open_record("dive-c")
-        await wait_for(pilot, lambda: record_ready(app))
+        await open_from_worklist(pilot, app, "dive-c")
         await pilot.pause(0.05)
         fail = [s.style for s in _segments(app) if "FAIL" in s.text and s.style]
         assert fail and all(style.reverse and style.bold and not style.dim for style in fail)
@@ -96,9 +91,7 @@ async def test_flag_strip_marks_only_the_stretches_and_next_flag_zooms_to_them(q
     _add_run_with_stretches(queue, "dive-a")
     app = ReviewApp(Queue.open(queue_dir), "mira", colour=False)
     async with app.run_test(size=(80, 24)) as pilot:
-        await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
-        app.screen.open_record("dive-a")
-        await wait_for(pilot, lambda: record_ready(app))
+        await open_from_worklist(pilot, app, "dive-a")
         screen = app.screen
         strip = screen.last_plots.flag_strip  # window 0-10 s: only 5-8 s is marked
         marked = [i for i, s in enumerate(strip) if s]

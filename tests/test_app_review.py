@@ -9,95 +9,31 @@ from __future__ import annotations
 
 import hashlib
 import time
-import shutil
 from pathlib import Path
 
-import numpy as np
+import app_helpers
 import pytest
+from app_helpers import (
+    HOSTILE_FILE,
+    decision_entries,
+    open_from_worklist,
+    record_ready,
+    screen_text,
+    type_text,
+    wait_for,
+)
 from rich.cells import cell_len
 
 from tracevet.app.app import ReviewApp
 from tracevet.app.record_screen import RecordScreen
 from tracevet.app.rerun_screen import RerunScreen
 from tracevet.app.worklist_screen import WorklistScreen
-from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings
-from tracevet.recording import Recording, write_recording
 from tracevet.workqueue import Queue
 
-DATA = Path(__file__).resolve().parent / "data"
-HOSTILE_FILE = "evil \x1b[31m[bold red]x.npz"
-HOSTILE_CHANNEL = "ch\x1b[2J[blink]1[/blink]"
 HOSTILE_NOTE = "fine \x1b[2J\x1b]0;pwned\x07 [bold]markup[/]"
 
-
-def _mitdb_mv() -> np.ndarray:
-    # MIT-BIH 208 excerpt: (raw - 1024) / 200 gives millivolts (tests/data/README.md)
-    raw = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"].astype(np.float64)
-    return (raw - 1024.0) / 200.0
-
-
-@pytest.fixture(scope="module")
-def queue_template(tmp_path_factory) -> Path:
-    """A queue with four cleaned records (one with a hostile file and channel name), built once."""
-    root = tmp_path_factory.mktemp("review")
-    queue = Queue.init(root / "queue")
-    ecg = _mitdb_mv()
-    fs = 360.0
-    files = []
-    for index, name in enumerate(("dive-a.npz", "dive-b.npz", "dive-c.npz", HOSTILE_FILE)):
-        excerpt = ecg[index * 7200 : (index + 1) * 7200]
-        channel = HOSTILE_CHANNEL if name == HOSTILE_FILE else "MLII"
-        path = root / name
-        write_recording(Recording(excerpt[:, None], fs, (channel,), "mV", "ecg"), path)
-        files.append(path)
-    # dive-c is cleaned with a 5 Hz baseline high-pass, far above the usual 0.05-0.67 Hz (common
-    # practice for ST-segment fidelity), so it carries fail flags like a damaging run would.
-    harsh = CleaningSettings.from_dict(dict(DEFAULT_SETTINGS.to_dict(), baseline="butterworth", baseline_cutoff_hz=5.0))
-    for record_id in queue.add_files(files, added_by="setup"):
-        queue.add_run(record_id, harsh if record_id == "dive-c" else DEFAULT_SETTINGS)
-    assert queue.record("dive-c").worst_severity == "fail"
-    return root / "queue"
-
-
-@pytest.fixture
-def queue_dir(queue_template, tmp_path) -> Path:
-    """A fresh copy of the template queue for one test."""
-    target = tmp_path / "queue"
-    shutil.copytree(queue_template, target)
-    return target
-
-
-async def wait_for(pilot, condition, timeout: float = 15.0) -> None:
-    """Let the app run until ``condition()`` holds (workers load records in threads)."""
-    waited = 0.0
-    while not condition():
-        if waited > timeout:
-            raise AssertionError("condition not reached in time")
-        await pilot.pause(0.05)
-        waited += 0.05
-
-
-def record_ready(app) -> bool:
-    """The record screen is on top and shows a run."""
-    screen = app.screen
-    return isinstance(screen, RecordScreen) and screen.shown_run is not None and screen.last_plots is not None
-
-
-def screen_text(app) -> str:
-    """What the terminal would show, as plain text (one line per row)."""
-    strips = app.screen._compositor.render_strips()
-    return "\n".join("".join(segment.text for segment in strip) for strip in strips)
-
-
-async def type_text(pilot, text: str) -> None:
-    """Type printable text key by key."""
-    names = {" ": "space", ",": "comma", ".": "full_stop", "-": "minus"}
-    for ch in text:
-        await pilot.press(names.get(ch, ch))
-
-
-def decision_entries(queue: Queue) -> list:
-    return [e for e in queue.log_entries() if e.event == "decision"]
+queue_template = app_helpers.queue_template  # the shared queue of four real-ECG records (fixtures)
+queue_dir = app_helpers.queue_dir
 
 
 async def test_review_session_writes_exactly_the_decisions_to_the_log(queue_dir):
@@ -263,9 +199,7 @@ async def test_hostile_names_and_notes_are_shown_inert(queue_dir):
     hostile_id = next(r.id for r in queue.records() if r.source_name == HOSTILE_FILE)
     app = ReviewApp(queue, "mira", colour=False)
     async with app.run_test(size=(100, 30)) as pilot:
-        await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
-        app.screen.open_record(hostile_id)
-        await wait_for(pilot, lambda: record_ready(app))
+        await open_from_worklist(pilot, app, hostile_id)
         text = screen_text(app)
         assert "ch\\x1b[2J[blink]1[/blink]" in text  # channel name, escaped and unstyled
         await pilot.press("i", "i")  # the run panel names the file the record came from
@@ -433,9 +367,7 @@ async def test_accepting_a_run_with_a_fail_flag_needs_a_note(queue_dir):
     failing = [r.id for r in queue.records() if r.worst_severity == "fail"]
     app = ReviewApp(queue, "mira", colour=False)
     async with app.run_test(size=(80, 24)) as pilot:
-        await wait_for(pilot, lambda: isinstance(app.screen, WorklistScreen))
-        app.screen.open_record(failing[0])
-        await wait_for(pilot, lambda: record_ready(app))
+        await open_from_worklist(pilot, app, failing[0])
         await pilot.press("a")
         await wait_for(pilot, lambda: type(app.screen).__name__ == "NoteScreen")
         assert "FAIL flag" in screen_text(app)  # the prompt says why a note is needed

@@ -2,49 +2,30 @@
 
 from __future__ import annotations
 
+import functools
 from pathlib import Path
 
-import numpy as np
+import app_helpers
 import pytest
+from app_helpers import screen_text
 
 from tracevet.app.app import ReviewApp
 from tracevet.app.record_screen import RecordScreen
-from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings
-from tracevet.recording import Recording, write_recording
 from tracevet.workqueue import Queue
 
-DATA = Path(__file__).resolve().parent / "data"
+# The search for a suggestion takes a while on a shared machine: a longer wait than the other app tests.
+wait_for = functools.partial(app_helpers.wait_for, timeout=60.0)
 
 
 @pytest.fixture
 def queue_dir(tmp_path) -> Path:
     """One real 20-s excerpt (MIT-BIH 208), cleaned with a 5 Hz baseline high-pass: fail flags."""
-    # MIT-BIH 208 excerpt: (raw - 1024) / 200 gives millivolts (tests/data/README.md)
-    raw = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"].astype(np.float64)
-    mv = (raw[:7200] - 1024.0) / 200.0
-    path = tmp_path / "dive-c.npz"
-    write_recording(Recording(mv[:, None], 360.0, ("MLII",), "mV", "ecg"), path)
+    path = app_helpers.write_excerpt(tmp_path / "dive-c.npz")
     queue = Queue.init(tmp_path / "queue")
     (record_id,) = queue.add_files([path], added_by="setup")
-    # a 5 Hz high-pass is far above the usual 0.05-0.67 Hz (common practice for ST fidelity)
-    harsh = CleaningSettings.from_dict(dict(DEFAULT_SETTINGS.to_dict(), baseline="butterworth", baseline_cutoff_hz=5.0))
-    queue.add_run(record_id, harsh)
+    queue.add_run(record_id, app_helpers.harsh_settings())
     assert queue.record(record_id).worst_severity == "fail"
     return tmp_path / "queue"
-
-
-async def wait_for(pilot, condition, timeout: float = 60.0) -> None:
-    waited = 0.0
-    while not condition():
-        if waited > timeout:
-            raise AssertionError("condition not reached in time")
-        await pilot.pause(0.05)
-        waited += 0.05
-
-
-def screen_text(app) -> str:
-    strips = app.screen._compositor.render_strips()
-    return "\n".join("".join(segment.text for segment in strip) for strip in strips)
 
 
 def suggestion_status(app) -> str | None:
@@ -87,13 +68,13 @@ async def test_suggestion_is_computed_in_the_background_and_taken_with_one_key(q
         run = queue.runs("dive-c")[-1]
         assert run.suggestion is not None and run.suggestion["candidate_set_digest"] == suggested.candidate_set_digest
         assert run.settings_digest == suggested.report.settings.digest() and run.made_by == "mira"
-        assert [e for e in queue.log_entries() if e.event == "decision"] == []
+        assert app_helpers.decision_entries(queue) == []
 
         await pilot.press("a")  # the reviewer's own key press signs it off
         await wait_for(pilot, lambda: type(app.screen).__name__ == "NoteScreen")
         await pilot.press("o", "k", "enter")
         await wait_for(pilot, lambda: any(e.event == "decision" for e in queue.log_entries()))
         await pilot.press("ctrl+q")
-    (entry,) = [e for e in Queue.open(queue_dir).log_entries() if e.event == "decision"]
+    (entry,) = app_helpers.decision_entries(Queue.open(queue_dir))
     assert entry.run == "run-002" and entry.get("suggested") is True
     assert entry.get("candidate_set_digest") == suggested.candidate_set_digest

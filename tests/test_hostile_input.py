@@ -70,6 +70,11 @@ def refused(run_cli, root: Path, *args, mention: str | None = None, code: int = 
     return err
 
 
+def denoise_refused(run_cli, work: Path, source, *options, mention: str | None = None) -> str:
+    """``tracevet denoise SOURCE out.npz OPTIONS`` (files in ``work``) refused in one line; return stderr."""
+    return refused(run_cli, work.parent, "denoise", work / source, work / "out.npz", *options, mention=mention)
+
+
 def _ecg(seconds: float = 8.0, fs: float = FS, scale: float = 1.0, seed: int = 0) -> np.ndarray:
     """A short synthetic ECG in mV (McSharry et al. 2003 model), test input only."""
     from tracevet.synthetic import synthetic_ecg
@@ -177,12 +182,12 @@ BAD_DENOISE_INPUTS = [
 
 @pytest.mark.parametrize("name,extra", BAD_DENOISE_INPUTS, ids=[n for n, _ in BAD_DENOISE_INPUTS])
 def test_denoise_refuses_bad_input_file(run_cli, work, name, extra):
-    refused(run_cli, work.parent, "denoise", work / name, work / "out.npz", *extra, mention=name)
+    denoise_refused(run_cli, work, name, *extra, mention=name)
 
 
 @pytest.mark.parametrize("fs", ["nan", "inf", "-inf", "0", "-250", "abc", "1e400", "", "0x10"])
 def test_denoise_refuses_bad_fs(run_cli, work, fs):
-    refused(run_cli, work.parent, "denoise", work / "good.npy", work / "out.npz", "--fs", fs, mention="fs")
+    denoise_refused(run_cli, work, "good.npy", "--fs", fs, mention="fs")
 
 
 @pytest.mark.parametrize("fs", ["1e300", "1e-9", "0.001"])
@@ -225,27 +230,18 @@ def test_denoise_extreme_fs_is_refused_or_cleaned(run_cli, work, fs):
     ],
 )
 def test_denoise_refuses_bad_setting(run_cli, work, setting, mention):
-    refused(run_cli, work.parent, "denoise", work / "good.npz", work / "out.npz", "--set", setting, mention=mention)
+    denoise_refused(run_cli, work, "good.npz", "--set", setting, mention=mention)
 
 
 def test_denoise_level_too_deep_for_signal(run_cli, work):
-    refused(run_cli, work.parent, "denoise", work / "short.npz", work / "out.npz", "--set", "level=12", mention="level")
+    denoise_refused(run_cli, work, "short.npz", "--set", "level=12", mention="level")
 
 
 @pytest.mark.parametrize(
     "profile", ["unsafe.yaml", "dup.yaml", "notmap.yaml", "badkey.yaml", "broken.yaml", "missing.yaml", "folder.npz"]
 )
 def test_denoise_refuses_bad_profile(run_cli, work, profile):
-    refused(
-        run_cli,
-        work.parent,
-        "denoise",
-        work / "good.npz",
-        work / "out.npz",
-        "--profile",
-        work / profile,
-        mention=profile,
-    )
+    denoise_refused(run_cli, work, "good.npz", "--profile", work / profile, mention=profile)
     assert not (work / "pwned.txt").exists() and not Path("pwned.txt").exists()
 
 
@@ -293,7 +289,7 @@ def test_denoise_unreadable_file(run_cli, work):
 def test_denoise_hostile_file_name_is_echoed_inert(run_cli, work):
     name = "a\x1b]0;title\x07[red]b[blink]\u202ec.csv"
     (work / name).write_text("")
-    err = refused(run_cli, work.parent, "denoise", work / name, work / "out.npz")
+    err = denoise_refused(run_cli, work, name)
     assert "\\x1b" in err
 
 
@@ -323,53 +319,22 @@ def test_denoise_extreme_scales(run_cli, work, scale, units, kind):
 # ---------------------------------------------------------------- assess
 
 
+def assess_refused(run_cli, work: Path, original: str, cleaned: str, *options, mention: str | None = None) -> str:
+    """``tracevet assess ORIGINAL CLEANED OPTIONS`` (files in ``work``) refused in one line; return stderr."""
+    return refused(run_cli, work.parent, "assess", work / original, work / cleaned, *options, mention=mention)
+
+
 def test_assess_refuses_mismatched_pairs(run_cli, work):
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "short.npz")
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "rate500.npz")
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "two.npz")
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "nan.npy", "--fs", "250", mention="nan.npy")
-    refused(run_cli, work.parent, "assess", work / "truncated.edf", work / "good.npz", mention="truncated.edf")
-    refused(
-        run_cli,
-        work.parent,
-        "assess",
-        work / "good.npz",
-        work / "good.npz",
-        "--limits",
-        work / "unsafe.yaml",
-        mention="unsafe.yaml",
-    )
-    refused(
-        run_cli,
-        work.parent,
-        "assess",
-        work / "good.npz",
-        work / "good.npz",
-        "--limits",
-        work / "notmap.yaml",
-        mention="notmap.yaml",
-    )
-    refused(run_cli, work.parent, "assess", work / "good.npz", work / "good.npz", "--fs", "nan", mention="fs")
-    refused(
-        run_cli,
-        work.parent,
-        "assess",
-        work / "good.npz",
-        work / "good.npz",
-        "--save",
-        work / "nowhere" / "deeper",
-        mention="nowhere",
-    )
-    err = refused(
-        run_cli,
-        work.parent,
-        "assess",
-        work / "good.npz",
-        work / "good.npz",
-        "--save",
-        work / "good.npy",
-        mention="good.npy",
-    )
+    assess_refused(run_cli, work, "good.npz", "short.npz")
+    assess_refused(run_cli, work, "good.npz", "rate500.npz")
+    assess_refused(run_cli, work, "good.npz", "two.npz")
+    assess_refused(run_cli, work, "good.npz", "nan.npy", "--fs", "250", mention="nan.npy")
+    assess_refused(run_cli, work, "truncated.edf", "good.npz", mention="truncated.edf")
+    assess_refused(run_cli, work, "good.npz", "good.npz", "--limits", work / "unsafe.yaml", mention="unsafe.yaml")
+    assess_refused(run_cli, work, "good.npz", "good.npz", "--limits", work / "notmap.yaml", mention="notmap.yaml")
+    assess_refused(run_cli, work, "good.npz", "good.npz", "--fs", "nan", mention="fs")
+    assess_refused(run_cli, work, "good.npz", "good.npz", "--save", work / "nowhere" / "deeper", mention="nowhere")
+    err = assess_refused(run_cli, work, "good.npz", "good.npz", "--save", work / "good.npy", mention="good.npy")
     assert "not a folder" in err
 
 
@@ -418,6 +383,16 @@ def queue(tmp_path, run_cli):
     rc, out, err = run_cli("init", q)
     assert rc == 0, err
     return q
+
+
+def added_record(run_cli, queue: Path, work: Path, clean: bool = False) -> str:
+    """Add ``good.npz`` to the queue with the CLI (and clean it, if asked); return its record id."""
+    rc, out, err = run_cli("add", queue, work / "good.npz")
+    assert rc == 0, err
+    if clean:
+        rc, out, err = run_cli("clean", queue, "--quiet", "--workers", "1")
+        assert rc in (0, 1), err
+    return next((queue / "records").iterdir()).name
 
 
 def test_queue_commands_refuse_non_queue(run_cli, work):
@@ -567,23 +542,17 @@ def test_decide_refuses_bad_runs_and_settings(run_cli, queue, work):
     rc, out, err = run_cli("add", queue, work / "good.npz")
     assert rc == 0, err
     record = next((queue / "records").iterdir()).name if (queue / "records").exists() else "good"
-    refused(run_cli, queue.parent, "decide", queue, record, "accept", "--run", "../run-001")
-    refused(run_cli, queue.parent, "decide", queue, record, "accept", "--run", "run-999")
-    refused(run_cli, queue.parent, "decide", queue, record, "rerun", "--set", "rule=magic", mention="rule")
-    refused(run_cli, queue.parent, "decide", queue, record, "rerun", "--set", "rule", mention="rule")
-    refused(
-        run_cli,
-        queue.parent,
-        "decide",
-        queue,
-        record,
-        "rerun",
-        "--profile",
-        work / "unsafe.yaml",
-        mention="unsafe.yaml",
-    )
-    refused(run_cli, queue.parent, "decide", queue, record, "reject")  # no note
-    refused(run_cli, queue.parent, "decide", queue, record, "maybe")
+
+    def decide_refused(*args, mention=None):
+        refused(run_cli, queue.parent, "decide", queue, record, *args, mention=mention)
+
+    decide_refused("accept", "--run", "../run-001")
+    decide_refused("accept", "--run", "run-999")
+    decide_refused("rerun", "--set", "rule=magic", mention="rule")
+    decide_refused("rerun", "--set", "rule", mention="rule")
+    decide_refused("rerun", "--profile", work / "unsafe.yaml", mention="unsafe.yaml")
+    decide_refused("reject")  # no note
+    decide_refused("maybe")
 
 
 def test_clean_refuses_bad_options(run_cli, queue):
@@ -594,11 +563,7 @@ def test_clean_refuses_bad_options(run_cli, queue):
 
 
 def test_notes_stored_as_given_and_shown_inert(run_cli, queue, work, tmp_path):
-    rc, out, err = run_cli("add", queue, work / "good.npz")
-    assert rc == 0, err
-    rc, out, err = run_cli("clean", queue, "--quiet", "--workers", "1")
-    assert rc in (0, 1), err
-    record = next((queue / "records").iterdir()).name
+    record = added_record(run_cli, queue, work, clean=True)
     note = HOSTILE_TEXT + "\nsecond line"
     reviewer = "rev\x1b[1m[i]x[/i]"
     rc, out, err = run_cli("decide", queue, record, "accept", "--note", note, "--reviewer", reviewer)
@@ -690,21 +655,17 @@ def test_written_files_are_readable_by_the_team(run_cli, work, tmp_path):
 
 
 def test_csv_errors_name_the_line_of_the_file(run_cli, work):
-    err = refused(run_cli, work.parent, "denoise", work / "text.csv", work / "out.npz")
+    err = denoise_refused(run_cli, work, "text.csv")
     assert "line 3" in err  # 'abc' is on the third line of the file
-    err = refused(run_cli, work.parent, "denoise", work / "ragged.csv", work / "out.npz")
+    err = denoise_refused(run_cli, work, "ragged.csv")
     assert "line 3" in err and "usecols" not in err
-    err = refused(run_cli, work.parent, "denoise", work / "nosignals.edf", work / "out.npz")
+    err = denoise_refused(run_cli, work, "nosignals.edf")
     assert "no signals" in err
 
 
 def test_export_refuses_a_tampered_log(run_cli, queue, work, tmp_path):
     """A sign-off whose log entry was edited (note, reviewer) is never exported as if valid."""
-    rc, out, err = run_cli("add", queue, work / "good.npz")
-    assert rc == 0, err
-    rc, out, err = run_cli("clean", queue, "--quiet", "--workers", "1")
-    assert rc in (0, 1), err
-    record = next((queue / "records").iterdir()).name
+    record = added_record(run_cli, queue, work, clean=True)
     rc, out, err = run_cli("decide", queue, record, "accept", "--note", "fine", "--reviewer", "ana")
     assert rc == 0, err
     log = queue / "decisions.jsonl"
@@ -723,7 +684,7 @@ def test_export_refuses_a_tampered_log(run_cli, queue, work, tmp_path):
 def test_numpy_files_that_are_not_numpy_say_so(run_cli, work, name, content):
     """Not numpy's guess that the bytes are a pickle, but what is wrong."""
     (work / name).write_bytes(content)
-    err = refused(run_cli, work.parent, "denoise", work / name, work / "out.npz", "--fs", "250", mention=name)
+    err = denoise_refused(run_cli, work, name, "--fs", "250", mention=name)
     assert "pickle" not in err and ("not a NumPy" in err or "empty" in err)
 
 
@@ -737,7 +698,7 @@ def test_numpy_header_declaring_a_huge_array(run_cli, work):
     header = data[:128].decode("latin1").replace("(10,)", "(10000000000000,)")
     header = header[:-1].ljust(127) + "\n"
     (work / "bomb.npy").write_bytes(header.encode("latin1") + data[128:])
-    refused(run_cli, work.parent, "denoise", work / "bomb.npy", work / "out.npz", "--fs", "250", mention="bomb.npy")
+    denoise_refused(run_cli, work, "bomb.npy", "--fs", "250", mention="bomb.npy")
 
 
 def test_edf_header_stays_printable_ascii_and_nan_ranges_refused(run_cli, work):
@@ -751,7 +712,7 @@ def test_edf_header_stays_printable_ascii_and_nan_ranges_refused(run_cli, work):
     data = bytearray((work / "good.edf").read_bytes())
     data[256 + 104 : 256 + 112] = b"nan     "  # physical minimum of the one signal
     (work / "pnan.edf").write_bytes(bytes(data))
-    err = refused(run_cli, work.parent, "denoise", work / "pnan.edf", work / "out.npz", mention="pnan.edf")
+    err = denoise_refused(run_cli, work, "pnan.edf", mention="pnan.edf")
     assert "physical minimum" in err
 
 
@@ -765,16 +726,14 @@ def test_absurdly_large_values_refused_not_overflowed(run_cli, work, scale, dtyp
         units=np.array("mV"),
         kind=np.array("ecg"),
     )
-    err = refused(run_cli, work.parent, "denoise", work / "huge.npz", work / "out.npz", mention="huge.npz")
+    err = denoise_refused(run_cli, work, "huge.npz", mention="huge.npz")
     assert "units" in err
-    refused(run_cli, work.parent, "assess", work / "huge.npz", work / "huge.npz", mention="huge.npz")
+    assess_refused(run_cli, work, "huge.npz", "huge.npz", mention="huge.npz")
 
 
 def test_hand_edited_claim_file_shown_inert(run_cli, queue, work):
     """Every field of a claim file edited by hand (host, since, reviewer) reaches the terminal inert."""
-    rc, out, err = run_cli("add", queue, work / "good.npz")
-    assert rc == 0, err
-    record = next((queue / "records").iterdir()).name
+    record = added_record(run_cli, queue, work)
     rc, out, err = run_cli("claim", queue, record, "--reviewer", "ana")
     assert rc == 0, err
     claim_file = next((queue / "claims").glob("*.json"))
@@ -797,28 +756,10 @@ def test_duplicate_keys_refused_in_queue_settings_and_limits(run_cli, queue, wor
     assert "duplicate key 'defaults'" in err
     settings.write_text(original, encoding="utf-8")
     (work / "limits.yaml").write_text("flag_limits:\n  r-peak-change: {warn: 0.1, fail: 0.2}\n  r-peak-change: off\n")
-    err = refused(
-        run_cli,
-        work.parent,
-        "assess",
-        work / "good.npz",
-        work / "good.npz",
-        "--limits",
-        work / "limits.yaml",
-        mention="limits.yaml",
-    )
+    err = assess_refused(run_cli, work, "good.npz", "good.npz", "--limits", work / "limits.yaml", mention="limits.yaml")
     assert "duplicate key 'r-peak-change'" in err and "line 3" in err
-    refused(
-        run_cli,
-        work.parent,
-        "denoise",
-        work / "good.npz",
-        work / "out.npz",
-        "--assess",
-        "--limits",
-        work / "limits.yaml",
-        mention="limits.yaml",
-    )
+    denoise_args = ("denoise", work / "good.npz", work / "out.npz", "--assess", "--limits", work / "limits.yaml")
+    refused(run_cli, work.parent, *denoise_args, mention="limits.yaml")
 
 
 def test_success_output_echoes_hostile_file_names_inert(run_cli, work):

@@ -26,6 +26,7 @@ from textual.widgets import Static
 
 from tracevet.app.display import inert_text
 from tracevet.errors import TracevetError
+from tracevet.workqueue.suggested import severity_counts
 
 if TYPE_CHECKING:
     from tracevet.app.app import ReviewApp
@@ -66,16 +67,9 @@ class SuggestionState:
     last_draw: float = 0.0
 
 
-def _severity_counts(flags) -> tuple[int, int]:
-    def severity(f):
-        return f.get("severity") if isinstance(f, dict) else getattr(f, "severity", None)
-
-    return sum(1 for f in flags if severity(f) == "fail"), sum(1 for f in flags if severity(f) == "warn")
-
-
 def flags_words(flags) -> str:
     """``none``, or ``2 fail, 1 warn (r-peak-change, ...)``."""
-    fails, warns = _severity_counts(flags)
+    _any_fail, _any_warn, fails, warns = severity_counts(flags)
     if not fails and not warns:
         return "none"
     ids = sorted({str(f.get("id") if isinstance(f, dict) else f.id) for f in flags})

@@ -8,9 +8,10 @@ from typing import Callable, Mapping
 import numpy as np
 
 from tracevet.assessment.beats import build_windows, windows_at
-from tracevet.assessment.flags import Flag, evaluate, grade, merge_stretches, no_beats_flag
+from tracevet.assessment.flags import Flag, evaluate, judge, merge_stretches, no_beats_flag
 from tracevet.assessment.limits import Limits, LimitSpec, default_limits, limits_from_mapping
 from tracevet.assessment.result import Assessment, ChannelBeats
+from tracevet.assessment.rules import RULE
 from tracevet.assessment.shape_measures import measure_templates
 from tracevet.assessment.signal_checks import clipped_runs, edge_deviation, signal_comparison
 from tracevet.assessment.stretches import (
@@ -222,18 +223,14 @@ def assess_channel(
 
     # Levels moved by the cleaning (level shifts, start-up swoops), and pauses.
     r_amp = metrics.get("r_amplitude")
-    if limits.absolute:
-        to_unit, amp_unit = limits.mv_per_unit, "mV"
-    else:
-        to_unit, amp_unit = (1.0 / r_amp if r_amp else None), "of R"
-    spec = limits.spec("baseline-excursion")
-    warn = spec.warn if limits.absolute else spec.warn_relative
+    to_unit = limits.mv_per_unit if limits.absolute else (1.0 / r_amp if r_amp else None)
+    warn, fail = limits.in_force("baseline-excursion")
     if to_unit is not None:
-        lowest = warn if warn is not None else (spec.fail if limits.absolute else spec.fail_relative)
+        lowest = warn if warn is not None else fail
         exc = baseline_excursions(original, cleaned, windows.peaks + windows.offset, labels, fs, windows.pre,
                                   windows.post, measures.fiducials.iso, to_unit, lowest)
         metrics["baseline_excursion"] = exc.value
-        flag = excursion_flag(channel, exc, limits, amp_unit)
+        flag = excursion_flag(channel, exc, limits)
         if flag is not None:
             where, more = merge_stretches([a for a, _ in exc.spans], [b for _, b in exc.spans], join_s=windows.rr_s)
             local[flag.id] = (where, more, exc.affected, exc.measured)
@@ -241,19 +238,15 @@ def assess_channel(
             flags.append(flag)
     holes = gaps(windows.peaks, fs, original.size, windows.pre, windows.post)
     metrics["unmeasured_s"] = float(sum(b - a for a, b in holes))
-    gap_spec = limits.spec("beats-missing")
-    if holes and gap_spec.enabled:
+    if holes:
         longest = max(b - a for a, b in holes)
-        severity, applied = grade(longest, gap_spec.warn, gap_spec.fail)
-        if severity is not None:
+        facts = {"unmeasured_s": metrics["unmeasured_s"], "stretches": len(holes)}
+        flag = judge(RULE["beats-missing"], channel, longest, limits, facts)
+        if flag is not None:
             where, more = merge_stretches([a for a, _ in holes], [b for _, b in holes])
-            flags.append(Flag(
-                "beats-missing", severity,
-                f"channel {channel}: no measurable beats for {metrics['unmeasured_s']:.1f} s in {len(holes)} "
-                f"stretch(es) (the longest {longest:.1f} s); the shape there is not assessed (limit {applied:g} s)",
-                longest, applied, gap_spec.source, channel))
-            local["beats-missing"] = (where, more, 0, int(windows.peaks.size))
-            extra_regions["beats-missing"] = holes
+            flags.append(flag)
+            local[flag.id] = (where, more, 0, int(windows.peaks.size))
+            extra_regions[flag.id] = holes
 
     peaks_s = windows.peaks[labels == 0] / fs
     flags = _locate(flags, duration, extra_regions, peaks_s, fs_pre, fs_post, measured or int(peaks_s.size), local)

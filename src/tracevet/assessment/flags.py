@@ -1,17 +1,22 @@
 """Distortion flags: measured values against limits, with human messages.
 
-Each flag names the channel, the value, the limit actually applied (never
-tighter than the noise allowance of the measure), whether the limit is
-absolute or relative, and where the limit comes from.
+What each flag is (its metric, unit, limits, source and wording) is one row
+of :data:`tracevet.assessment.rules.RULES`; this module grades values
+against the limits in force and builds the :class:`Flag`. Each flag names
+the channel, the value, the limit actually applied (never tighter than the
+noise allowance of the measure), whether the limit is absolute or relative,
+and where the limit comes from.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Mapping
 
 import numpy as np
 
-from tracevet.assessment.limits import Limits, LimitSpec
+from tracevet.assessment.limits import Limits
+from tracevet.assessment.rules import AMPLITUDE_NOTE, AMPLITUDE_UNIT, RULE, RULES, FlagRule, format_value
 
 SEVERITIES = ("warn", "fail")
 # Most stretches a flag lists in ``where``; the rest are counted in ``where_more``.
@@ -154,29 +159,61 @@ def grade(
     return None, warn_eff if warn_eff is not None else fail_eff
 
 
-def _fmt(value: float, unit: str) -> str:
-    if unit == "fraction":
-        return f"{100 * value:.1f} %"
-    if unit == "ms":
-        return f"{value:.1f} ms"
-    if unit == "%":
-        return f"{value:.1f} %"
-    if unit == "mV":
-        return f"{value:.3f} mV"
-    if unit == "of R":
-        return f"{100 * value:.1f} % of the R amplitude"
-    return f"{value:g} {unit}"
-
-
 def _limit_note(nominal: float | None, applied: float, unit: str, kind_note: str) -> str:
-    text = f"limit {_fmt(applied, unit)}"
+    text = f"limit {format_value(applied, unit)}"
     if nominal is not None and applied > nominal * (1 + 1e-9):
-        text += f", widened from {_fmt(nominal, unit)} for the template noise"
-    return f"{text}; {kind_note}"
+        text += f", widened from {format_value(nominal, unit)} for the template noise"
+    return f"{text}; {kind_note}" if kind_note else text
+
+
+def judge(
+    rule: FlagRule, channel: str, value: float | None, limits: Limits, facts: Mapping | None = None,
+    allowance: float = 0.0,
+) -> Flag | None:
+    """Grade one flag's value against its limits in force and word it from its row; ``None`` below the limits.
+
+    Parameters
+    ----------
+    rule : FlagRule
+        The flag's row of :data:`tracevet.assessment.rules.RULES`.
+    channel : str
+        Channel name, used in the message.
+    value : float or None
+        The flag's value in the unit of its limits: for an amplitude flag mV
+        (absolute limits) or a fraction of the R amplitude (relative limits).
+    limits : Limits
+        Limits in force for the record.
+    facts : mapping, optional
+        What the row's wording reads besides the value (the metrics, or the
+        counts of a path of its own).
+    allowance : float
+        Noise allowance in the value's unit; the limits in force are never
+        tighter (``max(limit, allowance)``, or the row's ``widen``).
+    """
+    spec = limits.spec(rule.id)
+    if not spec.enabled or value is None:
+        return None
+    warn, fail = limits.in_force(rule.id)
+    if rule.widen is not None:
+        severity, applied = grade(value, rule.widen(warn, allowance), rule.widen(fail, allowance))
+    else:
+        severity, applied = grade(value, warn, fail, allowance)
+    if severity is None or applied is None:
+        return None
+    nominal = fail if severity == "fail" else warn
+    unit = AMPLITUDE_UNIT[limits.absolute] if rule.amplitude else rule.unit
+    note = AMPLITUDE_NOTE[limits.absolute] if rule.amplitude else rule.note
+    message = rule.message(channel, value, facts or {}, unit, _limit_note(nominal, applied, unit, note))
+    return Flag(rule.id, severity, message, value, applied, spec.source, channel)
 
 
 def evaluate(channel: str, metrics: dict, allowance: dict, limits: Limits) -> list[Flag]:
-    """Turn one channel's metrics into flags.
+    """Turn one channel's metrics into flags: every row of the flag table that reads a metric.
+
+    For each row with a ``measure`` (in table order), the flag's value is
+    read from its metric; an amplitude is converted into mV (absolute
+    limits) or a fraction of the R amplitude (relative limits), together
+    with its noise allowance; then :func:`judge` grades and words it.
 
     Parameters
     ----------
@@ -191,175 +228,17 @@ def evaluate(channel: str, metrics: dict, allowance: dict, limits: Limits) -> li
     """
     flags: list[Flag] = []
     r_amp = metrics.get("r_amplitude")
-    absolute = limits.absolute
-    amp_unit = "mV" if absolute else "of R"
-    amp_note = (
-        "absolute limit in mV (ECG in known units)"
-        if absolute
-        else "relative limit, a fraction of the original R amplitude (MCG or unknown units)"
-    )
-
-    def add(flag_id, value, applied, nominal, unit, what, kind_note, severity):
-        spec = limits.spec(flag_id)
-        message = f"channel {channel}: {what} ({_limit_note(nominal, applied, unit, kind_note)})"
-        flags.append(Flag(flag_id, severity, message, value, applied, spec.source, channel))
-
-    def check(flag_id, value, allow, unit, describe, kind_note, warn=None, fail=None, use_spec=True):
-        spec: LimitSpec = limits.spec(flag_id)
-        if not spec.enabled or value is None:
-            return
-        if use_spec:
-            warn, fail = spec.warn, spec.fail
-        severity, applied = grade(value, warn, fail, allow)
-        if severity is None:
-            return
-        nominal = fail if severity == "fail" else warn
-        add(flag_id, value, applied, nominal, unit, describe(value), kind_note, severity)
-
-    ratio = metrics.get("r_amplitude_ratio")
-    if ratio is not None:
-        change = abs(1.0 - ratio)
-        check(
-            "r-peak-change",
-            change,
-            allowance.get("r_amplitude_ratio", 0.0),
-            "fraction",
-            lambda v: f"cleaned R peaks are {100 * v:.1f} % {'lower' if ratio < 1 else 'higher'} than the original's",
-            "relative to the original R amplitude",
-        )
-    widening = metrics.get("qrs_width_change_ms")
-    check(
-        "qrs-widening",
-        widening,
-        allowance.get("qrs_width_change_ms", 0.0),
-        "ms",
-        lambda v: f"the cleaned QRS is {v:.1f} ms wider than the original's",
-        "absolute limit in ms",
-    )
-    shift = metrics.get("r_timing_shift_ms")
-    if shift is not None:
-        check(
-            "beat-timing-shift",
-            abs(shift),
-            allowance.get("r_timing_shift_ms", 0.0),
-            "ms",
-            lambda v: f"cleaned beats are {v:.1f} ms {'late' if shift > 0 else 'early'} against the original",
-            "absolute limit in ms",
-        )
-    st = metrics.get("st_change")
-    if st is not None:
-        delay = metrics.get("st_delay_ms") or 80.0
-        if absolute:
-            value = abs(st) * limits.mv_per_unit
-            allow = allowance.get("st_change", 0.0) * limits.mv_per_unit
-        elif r_amp:
-            value = abs(st) / r_amp
-            allow = allowance.get("st_change", 0.0) / r_amp
-        else:
-            value = None
-            allow = 0.0
-        warn, fail = _amp_limits(limits, "st-level-change")
-        check(
-            "st-level-change",
-            value,
-            allow,
-            amp_unit,
-            lambda v: f"the ST level at J+{delay:.0f} ms moved {'up' if st > 0 else 'down'} by {_fmt(v, amp_unit)}",
-            amp_note,
-            warn,
-            fail,
-            use_spec=False,
-        )
-    for wave in ("p", "t"):
-        wave_ratio = metrics.get(f"{wave}_amplitude_ratio")
-        if wave_ratio is None:
+    for rule in RULES:
+        value = rule.value_from(metrics)
+        if value is None:
             continue
-        check(
-            f"{wave}-wave-change",
-            abs(1.0 - wave_ratio),
-            allowance.get(f"{wave}_amplitude_ratio", 0.0),
-            "fraction",
-            lambda v, r=wave_ratio, w=wave.upper(): (
-                f"the cleaned {w} wave is {100 * v:.1f} % {'smaller' if r < 1 else 'larger'} than the original's"
-            ),
-            f"relative to the original {wave.upper()} amplitude",
-        )
-    ringing = metrics.get("ringing_rms")
-    if ringing is not None:
-        value, allow = _amp_value(limits, ringing, allowance.get("ringing_rms", 0.0), r_amp)
-        warn, fail = _amp_limits(limits, "ringing")
-        check(
-            "ringing",
-            value,
-            allow,
-            amp_unit,
-            lambda v: f"oscillation beside the QRS that the original lacks, r.m.s. {_fmt(v, amp_unit)}",
-            amp_note,
-            warn,
-            fail,
-            use_spec=False,
-        )
-    fraction = metrics.get("removed_beat_fraction")
-    check(
-        "removed-beat-structure",
-        fraction,
-        allowance.get("removed_beat_fraction", 0.0),
-        "fraction",
-        lambda v: f"the removed component holds {100 * v:.1f} % of the beat shape (averaged over beats)",
-        "relative to the cleaned beat",
-    )
-    shape = metrics.get("beat_shape_change_percent")
-    if shape is not None:
-        spec = limits.spec("beat-shape-change")
-        extra = allowance.get("beat_shape_change_energy", 0.0)
-        # The energy allowance adds in quadrature to the nominal limit.
-        widen = lambda lim: None if lim is None else 100.0 * ((lim / 100.0) ** 2 + extra) ** 0.5  # noqa: E731
-        warn, fail = widen(spec.warn), widen(spec.fail)
-        severity, applied = grade(shape, warn, fail)
-        if spec.enabled and severity is not None:
-            nominal = spec.fail if severity == "fail" else spec.warn
-            add(
-                "beat-shape-change",
-                shape,
-                applied,
-                nominal,
-                "%",
-                f"the averaged beat changed by {shape:.1f} % (noise-corrected PRDN)",
-                "relative to the original beat",
-                severity,
-            )
-    clipped = metrics.get("clipped_runs")
-    check(
-        "clipping",
-        clipped,
-        0.0,
-        "runs",
-        lambda v: f"the cleaned trace has {int(v)} flat run(s) at its extremes that the original lacks",
-        "absolute limit in runs",
-    )
-    edge = metrics.get("edge_deviation")
-    if edge is not None:
-        value, allow = _amp_value(limits, edge, 0.0, r_amp)
-        warn, fail = _amp_limits(limits, "edge-artefact")
-        check(
-            "edge-artefact",
-            value,
-            allow,
-            amp_unit,
-            lambda v: f"the removed component at the start or end exceeds the interior by {_fmt(v, amp_unit)}",
-            amp_note,
-            warn,
-            fail,
-            use_spec=False,
-        )
+        allow = allowance.get(rule.allowance, 0.0) if rule.allowance else 0.0
+        if rule.amplitude:
+            value, allow = _amp_value(limits, value, allow, r_amp)
+        flag = judge(rule, channel, value, limits, metrics, allow)
+        if flag is not None:
+            flags.append(flag)
     return flags
-
-
-def _amp_limits(limits: Limits, flag_id: str) -> tuple[float | None, float | None]:
-    spec = limits.spec(flag_id)
-    if limits.absolute:
-        return spec.warn, spec.fail
-    return spec.warn_relative, spec.fail_relative
 
 
 def _amp_value(limits: Limits, value: float, allow: float, r_amp: float | None) -> tuple[float | None, float]:
@@ -373,16 +252,9 @@ def _amp_value(limits: Limits, value: float, allow: float, r_amp: float | None) 
 
 def no_beats_flag(channel: str, limits: Limits, found: int) -> Flag | None:
     """The ``no-beats`` flag (fail): no beat template could be built."""
-    spec = limits.spec("no-beats")
+    rule = RULE["no-beats"]
+    spec = limits.spec(rule.id)
     if not spec.enabled:
         return None
-    return Flag(
-        "no-beats",
-        "fail",
-        f"channel {channel}: no heartbeats found in the original ({found} detected, at least 2 needed); "
-        "the waveform shape cannot be assessed",
-        float(found),
-        2.0,
-        spec.source,
-        channel,
-    )
+    message = rule.message(channel, float(found), {}, rule.unit, "")
+    return Flag(rule.id, "fail", message, float(found), 2.0, spec.source, channel)

@@ -25,47 +25,11 @@ import math
 from dataclasses import dataclass, replace
 from typing import Any, Mapping
 
+from tracevet.assessment.rules import FLAG_IDS, RULE, RULES
 from tracevet.errors import InputError
 from tracevet.recording.model import UNIT_TO_MV
 
-SOURCE_ST = (
-    "AHA/ACCF/HRS 2009 Part VI (Wagner et al.) and Thygesen et al.: an ST deviation of 0.1 mV is "
-    "a diagnostic criterion; level read at J+80 ms (J+60 ms above 100 bpm), Long-Term ST Database convention"
-)
-SOURCE_AMPLITUDE = (
-    "common practice; of the order of the 10 % amplitude tolerance of the IEC 60601-2-25 "
-    "short-pulse response test (from memory)"
-)
-SOURCE_QRS = (
-    "common practice: QRS duration is read to about 10 ms and its upper normal value (about 110-120 ms) "
-    "leaves little room (AHA 2009 Part III, from memory)"
-)
-SOURCE_TIMING = (
-    "common practice: diagnostic timing is read to 2-4 ms (AHA/ACCF/HRS 2007 Part I asks for "
-    "500 Hz sampling, from memory)"
-)
-SOURCE_RINGING = (
-    "Rijnbeek, Kors & Witsenburg 2001 (Circulation 104:3087): amplitude errors of the order of 25 uV "
-    "matter; relative form: common practice"
-)
-SOURCE_WAVES = "common practice: P and T amplitudes are read to about 0.05 mV on 0.1-0.5 mV waves"
-SOURCE_REMOVED = "common practice: the removed component of a faithful cleaning carries no heartbeat shape"
-SOURCE_SHAPE = (
-    "Zigel, Cohen & Katz 2000 (IEEE TBME 47:1424): PRD above about 9 % no longer guarantees a "
-    "'good' reconstruction (from memory); noise-corrected, on beat templates"
-)
-SOURCE_CLIPPING = "common practice: a flat run at the extreme of a trace means the waveform was cut"
-SOURCE_EDGE = "common practice: start and end of a cleaned trace must look like its interior"
-SOURCE_EXCURSION = (
-    "IEC 60601-2-25 / AAMI EC11 low-frequency (impulse) test: after a 3 mV x 100 ms pulse the baseline may be "
-    "displaced by at most 0.1 mV (from memory); a displacement a cleaning adds under the beats is held to the same "
-    "0.1 mV; relative form: common practice"
-)
-SOURCE_GAPS = (
-    "common practice: where no beats are found the shape cannot be vouched for; a pause of 3 s is the usual "
-    "asystole alarm of monitors (from memory)"
-)
-SOURCE_BEATS = "common practice: the assessment compares beats; without beats it cannot vouch for the shape"
+__all__ = ["FLAG_IDS", "LimitSpec", "Limits", "default_limits", "limits_from_mapping"]
 
 
 @dataclass(frozen=True)
@@ -103,24 +67,12 @@ class LimitSpec:
     enabled: bool = True
 
 
-_DEFAULTS: tuple[LimitSpec, ...] = (
-    LimitSpec("no-beats", None, 0.0, "beats", SOURCE_BEATS),
-    LimitSpec("r-peak-change", 0.12, 0.16, "fraction", SOURCE_AMPLITUDE),
-    LimitSpec("qrs-widening", 6.0, 10.0, "ms", SOURCE_QRS),
-    LimitSpec("beat-timing-shift", 2.0, 4.0, "ms", SOURCE_TIMING),
-    LimitSpec("st-level-change", 0.05, 0.10, "mV", SOURCE_ST, True, 0.05, 0.10),
-    LimitSpec("p-wave-change", 0.20, 0.30, "fraction", SOURCE_WAVES),
-    LimitSpec("t-wave-change", 0.20, 0.30, "fraction", SOURCE_WAVES),
-    LimitSpec("ringing", 0.015, 0.020, "mV", SOURCE_RINGING, True, 0.015, 0.020),
-    LimitSpec("removed-beat-structure", 0.10, 0.15, "fraction", SOURCE_REMOVED),
-    LimitSpec("beat-shape-change", 15.0, 22.0, "%", SOURCE_SHAPE),
-    LimitSpec("clipping", None, 0.0, "runs", SOURCE_CLIPPING),
-    LimitSpec("edge-artefact", 0.10, 0.20, "mV", SOURCE_EDGE, True, 0.10, 0.20),
-    LimitSpec("baseline-excursion", 0.10, 0.20, "mV", SOURCE_EXCURSION, True, 0.10, 0.20),
-    LimitSpec("beats-missing", 3.0, None, "s", SOURCE_GAPS),
+# The default limits: one per row of the flag table (tracevet.assessment.rules.RULES), in its order.
+_DEFAULTS: tuple[LimitSpec, ...] = tuple(
+    LimitSpec(rule.id, rule.warn, rule.fail, rule.unit, rule.source, rule.amplitude, rule.warn_relative,
+              rule.fail_relative)
+    for rule in RULES
 )
-
-FLAG_IDS: tuple[str, ...] = tuple(spec.flag_id for spec in _DEFAULTS)
 
 
 @dataclass(frozen=True)
@@ -147,6 +99,17 @@ class Limits:
     def spec(self, flag_id: str) -> LimitSpec:
         """Return the limits of ``flag_id``."""
         return self.specs[flag_id]
+
+    def in_force(self, flag_id: str) -> tuple[float | None, float | None]:
+        """Return (warn, fail) of ``flag_id`` in the unit its value is graded in.
+
+        For an amplitude flag: mV when the limits are absolute, a fraction of
+        the R amplitude when relative; for any other flag its own unit.
+        """
+        spec = self.specs[flag_id]
+        if RULE[flag_id].amplitude and not self.absolute:
+            return spec.warn_relative, spec.fail_relative
+        return spec.warn, spec.fail
 
     def amplitude_limits(self, flag_id: str, r_amplitude: float | None) -> tuple[float | None, float | None]:
         """Return (warn, fail) of an amplitude flag in record units.

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import math
 
+from tracevet.assessment.rules import RULES
+
 # (metric key, label, unit kind); unit kinds: count, bpm, %, ms, signed ms, ratio, amp, signed amp.
 METRIC_ROWS: tuple[tuple[str, str, str], ...] = (
     ("beat_count", "beats detected", "count"),
@@ -40,21 +42,8 @@ METRIC_ROWS: tuple[tuple[str, str, str], ...] = (
     ("removed_rms", "removed part (r.m.s.)", "amp"),
 )
 
-# The metric each flag judges (flag id -> metric key), for marking flagged metrics.
-FLAG_METRIC: dict[str, str] = {
-    "no-beats": "beat_count",
-    "r-peak-change": "r_amplitude_ratio",
-    "qrs-widening": "qrs_width_change_ms",
-    "beat-timing-shift": "r_timing_shift_ms",
-    "st-level-change": "st_change",
-    "p-wave-change": "p_amplitude_ratio",
-    "t-wave-change": "t_amplitude_ratio",
-    "ringing": "ringing_rms",
-    "removed-beat-structure": "removed_beat_fraction",
-    "beat-shape-change": "beat_shape_change_percent",
-    "clipping": "clipped_runs",
-    "edge-artefact": "edge_deviation",
-}
+# The metric each flag judges (flag id -> metric key), for marking flagged metrics: from the flag table.
+FLAG_METRIC: dict[str, str] = {rule.id: rule.metric for rule in RULES}
 
 
 def channel_metrics(metrics: dict, channel: str, several_channels: bool) -> dict:

@@ -46,9 +46,10 @@ from tracevet.assessment.beats import (
     windows_at,
 )
 from tracevet.assessment.fiducials import SLOPE_SMOOTH_S, at_limit, moving_average, qrs_bounds, slope_of
-from tracevet.assessment.flags import Flag, evaluate, grade
+from tracevet.assessment.flags import Flag, evaluate, judge
 from tracevet.assessment.limits import Limits
 from tracevet.assessment.removed_part import detrended
+from tracevet.assessment.rules import RULE, RULES, TEMPLATE_FLAG_IDS
 from tracevet.assessment.shape_measures import TemplateMeasures, measure_templates, noise_k
 
 # Beats in the running median that judges a stretch; a stretch needs more than
@@ -72,20 +73,7 @@ GAP_RR = 3.0
 # Standard errors a single beat's level must exceed at an end (first or last
 # beat of the record or of a gap), where it is judged alone.
 END_K = 5.0
-# Flags whose rules come from the templates (the ones a stretch can confirm).
-TEMPLATE_FLAG_IDS = (
-    "r-peak-change",
-    "qrs-widening",
-    "beat-timing-shift",
-    "st-level-change",
-    "p-wave-change",
-    "t-wave-change",
-    "ringing",
-    "removed-beat-structure",
-    "beat-shape-change",
-)
-
-
+# Column of each template flag (the ones a stretch can confirm) in the screen's witnesses.
 _FLAG_COLUMN = {flag_id: j for j, flag_id in enumerate(TEMPLATE_FLAG_IDS)}
 
 
@@ -283,20 +271,9 @@ def _block_means(rows: np.ndarray, block: int) -> np.ndarray:
     return rows[:, :m].reshape(rows.shape[0], -1, block).mean(axis=2)
 
 
-# Screen readings: name -> (flag id, kind). Kinds: "fraction", "ms", "amp" (record
-# units), "energy-amp" and "energy-shape" (products of neighbouring beats).
-SCREEN = {
-    "r": ("r-peak-change", "fraction"),
-    "st": ("st-level-change", "amp"),
-    "p": ("p-wave-change", "fraction"),
-    "t": ("t-wave-change", "fraction"),
-    "timing": ("beat-timing-shift", "ms"),
-    "width": ("qrs-widening", "ms"),
-    "removed": ("removed-beat-structure", "fraction"),
-    "ring0": ("ringing", "energy-amp"),
-    "ring1": ("ringing", "energy-amp"),
-    "shape": ("beat-shape-change", "energy-shape"),
-}
+# Screen readings: name -> (flag id, kind), from the flag table's ``screen`` column. Kinds: "fraction", "ms",
+# "amp" (record units), "energy-amp" and "energy-shape" (products of neighbouring beats).
+SCREEN = {name: (rule.id, kind) for rule in RULES for name, kind in rule.screen}
 
 
 def _chunk_readings(d: np.ndarray, geo: Geometry, previous: dict | None) -> tuple[dict, dict]:
@@ -394,16 +371,10 @@ def screen(readings: dict, geo: Geometry, limits: Limits) -> tuple[np.ndarray, n
     return score > 1.0, score, noise, witnessed
 
 
-# Confirmation allowance from the group's beat-to-beat noise: metric -> (screen
-# reading, scale from the reading's unit to the metric's).
+# Confirmation allowance from the group's beat-to-beat noise: metric -> screen
+# reading of the same measure (the linear readings; energies are handled apart).
 _NOISE_TO_METRIC = {
-    "r_amplitude_ratio": "r",
-    "st_change": "st",
-    "p_amplitude_ratio": "p",
-    "t_amplitude_ratio": "t",
-    "r_timing_shift_ms": "timing",
-    "qrs_width_change_ms": "width",
-    "removed_beat_fraction": "removed",
+    rule.metric: name for rule in RULES for name, kind in rule.screen if not kind.startswith("energy")
 }
 
 
@@ -803,26 +774,8 @@ def unexplained_level(lx: np.ndarray, removed: np.ndarray, slow: np.ndarray, gro
     return np.maximum(0.0, np.abs(residual) - FIT_TOLERANCE * size)
 
 
-def excursion_flag(channel: str, exc: Excursions, limits: Limits, amp_unit: str) -> Flag | None:
+def excursion_flag(channel: str, exc: Excursions, limits: Limits) -> Flag | None:
     """The ``baseline-excursion`` flag from :func:`baseline_excursions` (``None`` below the limits)."""
-    spec = limits.spec("baseline-excursion")
-    if not spec.enabled or exc.value is None or not exc.spans:
+    if exc.value is None or not exc.spans:
         return None
-    if limits.absolute:
-        warn, fail = spec.warn, spec.fail
-    else:
-        warn, fail = spec.warn_relative, spec.fail_relative
-    severity, applied = grade(exc.value, warn, fail)
-    if severity is None or applied is None:
-        return None
-    if amp_unit == "mV":
-        size, lim, kind = f"{exc.value:.3f} mV", f"{applied:.3f} mV", "absolute limit in mV (ECG in known units)"
-    else:
-        size = f"{100 * exc.value:.1f} % of the R amplitude"
-        lim = f"{100 * applied:.1f} % of the R amplitude"
-        kind = "relative limit, a fraction of the original R amplitude (MCG or unknown units)"
-    message = (
-        f"channel {channel}: the cleaning moved beats away from their level by up to {size} more than the "
-        f"original had them (a level shift or a filter's start-up swoop; limit {lim}; {kind})"
-    )
-    return Flag("baseline-excursion", severity, message, exc.value, applied, spec.source, channel)
+    return judge(RULE["baseline-excursion"], channel, exc.value, limits)

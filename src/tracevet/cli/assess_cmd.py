@@ -19,9 +19,9 @@ import yaml
 from tracevet.assessment.limits import FLAG_IDS, limits_from_mapping
 from tracevet.assessment.metric_words import METRIC_ROWS, channel_metrics, format_metric
 from tracevet.caution import CAUTION
+from tracevet.cli.options import add_read_options
 from tracevet.errors import InputError
-from tracevet.recording import KINDS, SUPPORTED_READ, Recording, read_recording
-from tracevet.recording.model import units_option
+from tracevet.recording import SUPPORTED_READ, Recording, read_recording
 from tracevet.recording.atomic import write_text_atomic
 from tracevet.safe_yaml import load_yaml
 from tracevet.text import inert
@@ -194,16 +194,7 @@ def register(subparsers) -> argparse.ArgumentParser:
         "original", metavar="ORIGINAL", help=f"the recording before cleaning ({', '.join(SUPPORTED_READ)})"
     )
     parser.add_argument("cleaned", metavar="CLEANED", help="the cleaned recording (same length, rate and channels)")
-    parser.add_argument(
-        "--fs",
-        type=float,
-        metavar="HZ",
-        help="sampling rate in Hz (needed for .npy; must agree with the files otherwise)",
-    )
-    parser.add_argument("--kind", choices=KINDS, help="ecg, mcg or other (overrides the files)")
-    parser.add_argument(
-        "--units", metavar="U", type=units_option, help="units of the samples: mV, uV, pT, fT... (overrides the files)"
-    )
+    add_read_options(parser, "the files")
     parser.add_argument("--limits", metavar="FILE", help="YAML file with flag limits (a flag_limits: mapping)")
     parser.add_argument("--json", action="store_true", help="print exactly one JSON object: metrics and flags")
     parser.add_argument("--save", metavar="FOLDER", help="also write assessment.json and beats.npz into FOLDER")

@@ -30,9 +30,9 @@ from tracevet.cleaning import (
     load_profile,
 )
 from tracevet.cli import assess_cmd
+from tracevet.cli.options import add_read_options, add_set_option
 from tracevet.errors import InputError
-from tracevet.recording import KINDS, Recording, SUPPORTED_READ, SUPPORTED_WRITE, read_recording, write_recording
-from tracevet.recording.model import units_option
+from tracevet.recording import Recording, SUPPORTED_READ, SUPPORTED_WRITE, read_recording, write_recording
 from tracevet.text import inert
 
 
@@ -86,16 +86,7 @@ def settings_reference() -> str:
 def add_input_arguments(parser: argparse.ArgumentParser) -> None:
     """INPUT and the options that say how to read it (--fs, --kind, --units)."""
     parser.add_argument("input", metavar="INPUT", nargs="?", help=f"recording to clean ({', '.join(SUPPORTED_READ)})")
-    parser.add_argument(
-        "--fs",
-        type=float,
-        metavar="HZ",
-        help="sampling rate in Hz (needed for .npy; must agree with the file otherwise)",
-    )
-    parser.add_argument("--kind", choices=KINDS, help="what the recording is: ecg, mcg or other (overrides the file)")
-    parser.add_argument(
-        "--units", metavar="U", type=units_option, help="units of the samples, e.g. mV, uV, pT, fT (overrides the file)"
-    )
+    add_read_options(parser, "the file")
 
 
 def add_settings_arguments(parser: argparse.ArgumentParser) -> None:
@@ -106,14 +97,7 @@ def add_settings_arguments(parser: argparse.ArgumentParser) -> None:
         help=f"built-in profile ({', '.join(PROFILES)}) or a YAML profile file (safe loading only); "
         "unnamed settings keep their default",
     )
-    parser.add_argument(
-        "--set",
-        dest="overrides",
-        metavar="KEY=VALUE",
-        action="append",
-        default=[],
-        help="change one setting, after the profile (repeatable), e.g. --set level=5",
-    )
+    add_set_option(parser, "change one setting, after the profile (repeatable), e.g. --set level=5")
     parser.add_argument(
         "--show-settings", action="store_true", help="print the effective settings as YAML and their SHA-256 digest"
     )

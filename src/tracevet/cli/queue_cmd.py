@@ -12,8 +12,10 @@ import sys
 from collections import Counter
 
 from tracevet.cli.defaults import QUEUE_HELP, queue_path
+from tracevet.cli.options import add_reviewer_option, add_set_option
 from tracevet.recording.model import units_option
 from tracevet.text import inert
+
 
 def register(subparsers) -> None:
     """Add the queue commands to the ``tracevet`` parser."""
@@ -22,14 +24,7 @@ def register(subparsers) -> None:
     )
     p.add_argument("queue", metavar="QUEUE", help="folder to create (or an empty one)")
     p.add_argument("--profile", metavar="FILE", help="cleaning profile (YAML) the queue cleans with")
-    p.add_argument(
-        "--set",
-        dest="overrides",
-        action="append",
-        default=[],
-        metavar="KEY=VALUE",
-        help="cleaning setting for the queue (repeatable)",
-    )
+    add_set_option(p, "cleaning setting for the queue (repeatable)")
     p.add_argument("--kind", default="ecg", help="kind for files that do not say: ecg, mcg, other (default ecg)")
     p.add_argument("--units", default="mV", type=units_option, help="units for files that do not say (default mV)")
     p.add_argument(
@@ -55,7 +50,7 @@ def register(subparsers) -> None:
     p.add_argument("--fs", type=float, help="sampling rate in Hz (needed for .npy)")
     p.add_argument("--kind", help="ecg, mcg or other (default: from the file, else the queue's)")
     p.add_argument("--units", type=units_option, help="units (default: from the file, else the queue's)")
-    p.add_argument("--reviewer", help="who adds them (default $TRACEVET_REVIEWER or login name)")
+    add_reviewer_option(p, "who adds them")
     p.add_argument("--allow-duplicates", action="store_true", help="add files whose bytes are already in the queue")
     p.set_defaults(func=cmd_add)
 
@@ -66,14 +61,7 @@ def register(subparsers) -> None:
     )
     p.add_argument("queue", metavar="QUEUE")
     p.add_argument("--workers", type=int, default=2, help="worker processes on this machine (default 2)")
-    p.add_argument(
-        "--set",
-        dest="overrides",
-        action="append",
-        default=[],
-        metavar="KEY=VALUE",
-        help="change a cleaning setting for this batch",
-    )
+    add_set_option(p, "change a cleaning setting for this batch")
     p.add_argument(
         "--cluster",
         metavar="ADDRESS",
@@ -122,16 +110,9 @@ def register(subparsers) -> None:
     p.add_argument("record", metavar="RECORD")
     p.add_argument("decision", choices=("accept", "reject", "rerun"))
     p.add_argument("--note", default="", help="why (stored as typed)")
-    p.add_argument("--reviewer", help="who decides (default $TRACEVET_REVIEWER or login name)")
+    add_reviewer_option(p, "who decides")
     p.add_argument("--run", help="the run signed off (default: the newest)")
-    p.add_argument(
-        "--set",
-        dest="overrides",
-        action="append",
-        default=[],
-        metavar="KEY=VALUE",
-        help="with rerun: settings for the re-run (over the queue's)",
-    )
+    add_set_option(p, "with rerun: settings for the re-run (over the queue's)")
     p.add_argument("--profile", metavar="FILE", help="with rerun: a profile for the re-run")
     p.add_argument(
         "--override",
@@ -148,7 +129,7 @@ def register(subparsers) -> None:
         p = subparsers.add_parser(name, help=text, description=text[0].upper() + text[1:] + ".")
         p.add_argument("queue", metavar="QUEUE")
         p.add_argument("record", metavar="RECORD")
-        p.add_argument("--reviewer", help="who (default $TRACEVET_REVIEWER or login name)")
+        add_reviewer_option(p, "who")
         p.set_defaults(func=cmd_claim if name == "claim" else cmd_release)
 
     p = subparsers.add_parser(
@@ -165,7 +146,7 @@ def register(subparsers) -> None:
     group = p.add_mutually_exclusive_group()
     group.add_argument("--verify", action="store_true", help="check everything; exit 1 if anything is wrong")
     group.add_argument("--repair", action="store_true", help="remove a torn last line, keeping every complete entry")
-    p.add_argument("--reviewer", help="with --repair: who repairs (default $TRACEVET_REVIEWER or login name)")
+    add_reviewer_option(p, "with --repair: who repairs")
     p.set_defaults(func=cmd_log)
 
     p = subparsers.add_parser(
@@ -178,7 +159,7 @@ def register(subparsers) -> None:
     )
     p.add_argument("queue", metavar="QUEUE")
     p.add_argument("dest", metavar="DEST", help="new folder to create")
-    p.add_argument("--reviewer", help="who exports (default $TRACEVET_REVIEWER or login name)")
+    add_reviewer_option(p, "who exports")
     p.set_defaults(func=cmd_export)
 
 
@@ -201,12 +182,9 @@ def cmd_init(args) -> int:
 
     cleaning: dict = {}
     if args.profile or args.overrides:
-        from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, load_profile
+        from tracevet.cli.denoise_cmd import settings_from_args
 
-        chosen = load_profile(args.profile) if args.profile else DEFAULT_SETTINGS
-        if args.overrides:
-            chosen = apply_overrides(chosen, args.overrides)
-        cleaning = chosen.to_dict()
+        cleaning = settings_from_args(args).to_dict()
     settings = new_settings(
         cleaning=cleaning, kind=args.kind, units=args.units, claim_idle_minutes=args.claim_idle_minutes
     )
@@ -295,7 +273,6 @@ def cmd_clean(args) -> int:
 
     outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress, cluster=cluster)
     made = [o for o in outcomes if o.run_id]
-    flagged = Counter(o.worst_severity or "none" for o in made)
 
     def finish(code: int) -> int:
         if not getattr(args, "suggest", False):
@@ -308,22 +285,32 @@ def cmd_clean(args) -> int:
         print("nothing waiting to be cleaned")
         return finish(0)
     where = f" on {inert(cluster.address, 80)}" if cluster is not None else ""
-    print(
-        f"cleaned {len(made)} record(s){where}: {flagged.get('fail', 0)} with fail flags, "
-        f"{flagged.get('warn', 0)} with warnings, {flagged.get('none', 0)} without flags"
-    )
+    print(f"cleaned {len(made)} record(s){where}: {severity_words(made)}")
     if retries:
         print(f"{retries} task(s) retried (a worker died or a task failed and was run again)")
     if failures:
-        for outcome in failures:
-            if bar is None:
-                print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
-        print(
-            f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting",
-            file=sys.stderr,
+        print_failures(
+            failures, bar, f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting"
         )
         return finish(1)
     return finish(0)
+
+
+def severity_words(made) -> str:
+    """``N with fail flags, N with warnings, N without flags`` over batch outcomes that made a run."""
+    counts = Counter(o.worst_severity or "none" for o in made)
+    return (
+        f"{counts.get('fail', 0)} with fail flags, {counts.get('warn', 0)} with warnings, "
+        f"{counts.get('none', 0)} without flags"
+    )
+
+
+def print_failures(failures, bar, summary: str) -> None:
+    """Each failed record's line on stderr (unless the progress bar already showed it), then ``summary``."""
+    if bar is None:
+        for outcome in failures:
+            print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
+    print(summary, file=sys.stderr)
 
 
 # -------------------------------------------------------------------- status
@@ -400,9 +387,8 @@ def cmd_decide(args) -> int:
     if args.decision == "rerun" and (args.overrides or args.profile):
         from tracevet.cleaning import apply_overrides, load_profile
 
-        requested = load_profile(args.profile) if args.profile else queue.settings.cleaning_settings()
-        if args.overrides:
-            requested = apply_overrides(requested, args.overrides)
+        base = load_profile(args.profile) if args.profile else queue.settings.cleaning_settings()
+        requested = apply_overrides(base, args.overrides)
     elif args.overrides or args.profile:
         raise InputError("--set/--profile", "settings go with a 'rerun' decision only")
     entry = queue.decide(

@@ -7,9 +7,10 @@ import sys
 from pathlib import Path
 
 from tracevet.cli.defaults import QUEUE_ENV, QUEUE_HELP, default_queue_path, queue_path
+from tracevet.cli.options import add_reviewer_option
 from tracevet.errors import InputError
 from tracevet.text import inert
-from tracevet.workqueue.queue import REVIEWER_ENV, resolve_reviewer
+from tracevet.workqueue.queue import resolve_reviewer
 
 __all__ = ["QUEUE_ENV", "default_queue_path", "register", "run"]
 
@@ -25,15 +26,8 @@ def register(subparsers) -> None:
             "written to the queue's log before the app says it is saved. Press ? in the app for every key."
         ),
     )
-    parser.add_argument(
-        "queue",
-        nargs="?",
-        help=QUEUE_HELP,
-    )
-    parser.add_argument(
-        "--reviewer",
-        help=f"name written into claims and decisions (default: ${REVIEWER_ENV}, else your login name)",
-    )
+    parser.add_argument("queue", nargs="?", help=QUEUE_HELP)
+    add_reviewer_option(parser, "name written into claims and decisions")
     parser.set_defaults(func=run)
 
 

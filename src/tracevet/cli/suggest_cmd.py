@@ -136,8 +136,7 @@ def register(subparsers) -> argparse.ArgumentParser:
 
 def suggest_pass(queue, args: argparse.Namespace, cluster=None) -> int:
     """``tracevet clean QUEUE --suggest``: a suggested run for every flagged record; 1 if any record failed."""
-    from collections import Counter
-
+    from tracevet.cli.queue_cmd import print_failures, severity_words
     from tracevet.workqueue.suggested import suggest_flagged
 
     bar = None
@@ -160,20 +159,13 @@ def suggest_pass(queue, args: argparse.Namespace, cluster=None) -> int:
         print("no flagged record waiting for review: nothing to suggest")
         return 0
     made = [o for o in outcomes if o.run_id]
-    severities = Counter(o.worst_severity or "none" for o in made)
-    print(
-        f"suggested runs added for {len(made)} of {len(outcomes)} flagged record(s): {severities.get('fail', 0)} with "
-        f"fail flags, {severities.get('warn', 0)} with warnings, {severities.get('none', 0)} without flags"
-    )
+    print(f"suggested runs added for {len(made)} of {len(outcomes)} flagged record(s): {severity_words(made)}")
     for outcome in outcomes:
         if outcome.run_id:
             print(f"  {inert(outcome.record_id)}: {outcome.run_id} (suggested, {outcome.n_flags} flag(s))")
         elif outcome.skipped:
             print(f"  {inert(outcome.record_id)}: no run added: {inert(outcome.skipped, 200)}")
     if errors:
-        if bar is None:
-            for outcome in errors:
-                print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
-        print(f"tracevet: no suggestion for {len(errors)} record(s) (listed above)", file=sys.stderr)
+        print_failures(errors, bar, f"tracevet: no suggestion for {len(errors)} record(s) (listed above)")
         return 1
     return 0

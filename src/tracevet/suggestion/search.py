@@ -37,6 +37,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from tracevet.assessment.rules import TRACE_FLAG_IDS
 from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings
 from tracevet.errors import InputError, TracevetError
 from tracevet.recording import Recording
@@ -537,7 +538,7 @@ def flagged_stretches(assessment, duration_s: float) -> list[tuple[float, float]
     if not out:
         for channel in getattr(assessment, "channels", []):
             for start, end, flag_id in getattr(channel, "regions", ()):
-                if flag_id in ("clipping", "edge-artefact") and end - start < 0.9 * duration_s:
+                if flag_id in TRACE_FLAG_IDS and end - start < 0.9 * duration_s:
                     out.append((float(start), float(end)))
     return sorted(set(out))
 

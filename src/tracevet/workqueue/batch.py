@@ -22,12 +22,13 @@ from __future__ import annotations
 import os
 import time
 import uuid
+from contextlib import contextmanager
 from dataclasses import dataclass, replace
 from typing import Callable, Iterator
 
 import numpy as np
 
-from tracevet.errors import InputError
+from tracevet.errors import InputError, TracevetError
 from tracevet.text import inert
 from tracevet.workqueue.backend import BackendLost, InlineBackend, LocalPoolBackend, run_tasks
 from tracevet.workqueue.ids import run_number
@@ -103,26 +104,69 @@ def open_backend(workers: int = 2, cluster=None, partial: Callable[[str, float],
     return LocalPoolBackend(workers, partial)
 
 
+def record_task(
+    queue,
+    record_id: str,
+    token: str,
+    settings: dict,
+    limits: dict,
+    versions: dict,
+    send_bytes: bool,
+    meta: dict | None = None,
+) -> RecordTask:
+    """The task that lets a worker read one record's original: its bytes when ``send_bytes``, else its path.
+
+    ``token`` is the batch's (the task's is ``TOKEN/RECORD``), ``settings`` the
+    cleaning settings asked for, ``limits`` the queue's flag limits,
+    ``versions`` this process's :func:`software_versions` and ``meta`` the
+    record's metadata when already read.
+    """
+    meta = read_meta(queue.paths, record_id) if meta is None else meta
+    path = original_path(queue.paths, record_id, meta)
+    return RecordTask(
+        record_id=record_id,
+        token=f"{token}/{record_id}",
+        settings=settings,
+        flag_limits=limits,
+        original_name=path.name,
+        original_sha256=str(meta.get("original_sha256")),
+        read_fs=meta.get("read_fs"),
+        kind=meta.get("kind"),
+        units=meta.get("units"),
+        versions=versions,
+        path=None if send_bytes else str(path),
+        data=np.frombuffer(path.read_bytes(), dtype=np.uint8) if send_bytes else None,
+    )
+
+
 def _tasks(queue, todo: list[tuple[str, dict]], token: str, versions: dict, send_bytes: bool) -> Iterator[RecordTask]:
     """Build each record's task when the loop asks for it (bytes read then, not before)."""
     limits = dict(queue.settings.flag_limits)
     for record_id, settings in todo:
-        meta = read_meta(queue.paths, record_id)
-        path = original_path(queue.paths, record_id, meta)
-        yield RecordTask(
-            record_id=record_id,
-            token=f"{token}/{record_id}",
-            settings=settings,
-            flag_limits=limits,
-            original_name=path.name,
-            original_sha256=str(meta.get("original_sha256")),
-            read_fs=meta.get("read_fs"),
-            kind=meta.get("kind"),
-            units=meta.get("units"),
-            versions=versions,
-            path=None if send_bytes else str(path),
-            data=np.frombuffer(path.read_bytes(), dtype=np.uint8) if send_bytes else None,
-        )
+        yield record_task(queue, record_id, token, settings, limits, versions, send_bytes)
+
+
+def provenance_problem(result, task: RecordTask, versions: dict, verb: str = "cleaned") -> str | None:
+    """Why a worker's result cannot be taken as made from ``task``'s original by this software, or None.
+
+    Checks the worker's software versions against ``versions`` and the
+    checksum of the bytes it read against the original's; ``verb`` says what
+    the worker did with those bytes, in the refusal.
+    """
+    difference = version_difference(versions, result.versions or {})
+    if difference is not None:
+        return f"refused: result from a worker with other software ({difference})"
+    if result.input_sha256 != task.original_sha256:
+        return f"refused: the worker {verb} bytes that do not match the original's checksum"
+    return None
+
+
+def shape_problem(cleaned, meta: dict) -> str | None:
+    """A refusal when the cleaned recording does not have the original's shape (from its ``meta``), else None."""
+    samples = getattr(cleaned, "samples", None)
+    if samples is None or samples.shape != (meta.get("n_samples"), meta.get("n_channels")):
+        return "refused: the cleaned recording does not have the original's shape"
+    return None
 
 
 def check_result(task: RecordTask, result, versions: dict, expected_digest: str, meta: dict) -> str | None:
@@ -133,20 +177,86 @@ def check_result(task: RecordTask, result, versions: dict, expected_digest: str,
         return "the worker sent back the result of another task"
     if result.error:
         return result.error
-    difference = version_difference(versions, result.versions or {})
-    if difference is not None:
-        return f"refused: result from a worker with other software ({difference})"
-    if result.input_sha256 != task.original_sha256:
-        return "refused: the worker cleaned bytes that do not match the original's checksum"
+    problem = provenance_problem(result, task, versions)
+    if problem is not None:
+        return problem
     if result.settings_digest != expected_digest:
         return "refused: the worker cleaned with other settings than those asked for"
-    cleaned = result.cleaned
-    samples = getattr(cleaned, "samples", None)
-    if samples is None or samples.shape != (meta.get("n_samples"), meta.get("n_channels")):
-        return "refused: the cleaned recording does not have the original's shape"
+    problem = shape_problem(result.cleaned, meta)
+    if problem is not None:
+        return problem
     if result.assessment is None or not hasattr(result.assessment, "save"):
         return "refused: the worker sent back no assessment"
     return None
+
+
+def worker_extra(result) -> dict:
+    """What a stored run records of the worker that made it: identity, software, seconds."""
+    return {"worker": result.worker, "software": result.versions, "worker_seconds": round(result.seconds, 3)}
+
+
+def store_failure(exc: TracevetError | OSError) -> str:
+    """One line for a run that could not be stored (bad data met while storing, or the disk)."""
+    if isinstance(exc, TracevetError):
+        return exc.one_line()
+    return f"could not store the run ({inert(exc, 160)})"
+
+
+@contextmanager
+def batch_lock(queue, workers: int) -> Iterator[None]:
+    """Hold the queue's batch lock for the ``with`` block: one batch (cleaning or suggesting) at a time.
+
+    Raises InputError, before anything is done, for fewer than one worker
+    or when another batch runs on this queue.
+    """
+    if workers < 1:
+        raise InputError("--workers", "must be at least 1")
+    lock_fd = try_hold(queue.paths.clean_lock)
+    if lock_fd is None:
+        raise InputError(str(queue.root), "another 'tracevet clean' is already running on this queue")
+    try:
+        yield
+    finally:
+        os.close(lock_fd)
+
+
+class BatchProgress:
+    """A batch's outcomes so far and the parts done of the records in flight.
+
+    Reports ``progress(done, total, outcome)`` as :func:`clean_waiting`
+    describes it: ``done`` counts finished records plus the fractions of
+    those being cleaned.
+    """
+
+    def __init__(self, progress: Callable | None, total: int):
+        self.progress = progress
+        self.total = total
+        self.outcomes: list = []
+        self.partial: dict[str, float] = {}  # record id -> fraction done, for records in flight
+
+    def part(self, record_id: str, fraction: float) -> None:
+        """A record in flight is ``fraction`` done (the backend's ``partial`` callback)."""
+        self.partial[record_id] = fraction
+        self.report()
+
+    def finish(self, record_id: str, outcome) -> None:
+        """A record is done with ``outcome`` (reported by the next :meth:`report`)."""
+        self.partial.pop(record_id, None)
+        self.outcomes.append(outcome)
+
+    def report(self, outcome=None) -> None:
+        """Call ``progress`` (if any) with where the batch stands."""
+        if self.progress:
+            self.progress(len(self.outcomes) + sum(self.partial.values()), self.total, outcome)
+
+
+def backend_traits(backend, workers: int, total: int) -> tuple[bool, bool, int]:
+    """``(remote, send_bytes, slots)`` of a backend: whether tasks leave this machine, whether they
+    carry the originals' bytes (remote without a shared filesystem), and how many run at once."""
+    remote = bool(getattr(backend, "remote", False))
+    send_bytes = remote and not getattr(backend, "shared_filesystem", False)
+    slots = int(getattr(backend, "slots", None) or min(workers, total))
+    return remote, send_bytes, slots
 
 
 def clean_waiting(
@@ -186,85 +296,65 @@ def clean_waiting(
     BackendLost
         When the scheduler is lost mid-batch; the runs already stored stay.
     """
-    if workers < 1:
-        raise InputError("--workers", "must be at least 1")
-    lock_fd = try_hold(queue.paths.clean_lock)
-    if lock_fd is None:
-        raise InputError(str(queue.root), "another 'tracevet clean' is already running on this queue")
-    own_backend = None
-    try:
-        sweep_work(queue.paths)
-        base = queue.settings.cleaning_settings(overrides).to_dict()
-        queue.settings.limits()  # a bad flag_limits section stops the batch here, once, not per record
-        todo = [(record_id, requested or base) for record_id, requested in waiting(queue)]
-        total = len(todo)
-        outcomes: list[CleanOutcome] = []
-        if total == 0:
-            if progress:
-                progress(0, 0, None)
-            return outcomes
-        pending_index: list[str] = []
-        partial: dict[str, float] = {}  # record id -> fraction done, for records being cleaned
-        last_flush = time.monotonic()
-
-        def part(record_id: str, fraction: float) -> None:
-            partial[record_id] = fraction
-            if progress:
-                progress(len(outcomes) + sum(partial.values()), total, None)
-
-        if backend is None:
-            own_backend = backend = open_backend(min(workers, total), cluster, part)
-        if progress:
-            progress(0, total, None)
-        versions = software_versions()
-        token = uuid.uuid4().hex
-        remote = bool(getattr(backend, "remote", False))
-        send_bytes = remote and not getattr(backend, "shared_filesystem", False)
-        slots = int(getattr(backend, "slots", None) or min(workers, total))
-        digests = _digests(todo)
-
-        def flush(force: bool = False) -> None:
-            nonlocal last_flush
-            if pending_index and (force or time.monotonic() - last_flush > _FLUSH_SECONDS):
-                queue.refresh_index(pending_index)
-                pending_index.clear()
-                last_flush = time.monotonic()
-
-        def on_result(task: RecordTask, result, error: str | None, retries: int) -> None:
-            partial.pop(task.record_id, None)
-            worker = _worker_text(result)
-            outcome = _store(queue, task, result, error, versions, digests[task.record_id], worker, retries)
-            outcomes.append(outcome)
-            if outcome.run_id:
-                pending_index.append(outcome.record_id)
-            flush()
-            if progress:
-                progress(len(outcomes) + sum(partial.values()), total, outcome)
-
+    with batch_lock(queue, workers):
+        own_backend = None
         try:
-            run_tasks(
-                backend,
-                clean_record,
-                _tasks(queue, todo, token, versions, send_bytes),
-                on_result,
-                max_in_flight=slots * IN_FLIGHT_PER_WORKER if slots > 1 else 1,
-                on_wait=flush,
-                keep=lambda task: replace(task, data=None),
-            )
-        except BackendLost as exc:
-            stored = sum(1 for o in outcomes if o.run_id)
-            raise BackendLost(
-                f"{exc.one_line()}; the {stored} run(s) stored before stay, run 'tracevet clean' again to carry on"
-            ) from None
+            sweep_work(queue.paths)
+            base = queue.settings.cleaning_settings(overrides).to_dict()
+            queue.settings.limits()  # a bad flag_limits section stops the batch here, once, not per record
+            todo = [(record_id, requested or base) for record_id, requested in waiting(queue)]
+            total = len(todo)
+            tally = BatchProgress(progress, total)
+            if total == 0:
+                tally.report()
+                return tally.outcomes
+            if backend is None:
+                own_backend = backend = open_backend(min(workers, total), cluster, tally.part)
+            tally.report()
+            versions = software_versions()
+            token = uuid.uuid4().hex
+            _remote, send_bytes, slots = backend_traits(backend, workers, total)
+            digests = _digests(todo)
+            pending_index: list[str] = []
+            last_flush = time.monotonic()
+
+            def flush(force: bool = False) -> None:
+                nonlocal last_flush
+                if pending_index and (force or time.monotonic() - last_flush > _FLUSH_SECONDS):
+                    queue.refresh_index(pending_index)
+                    pending_index.clear()
+                    last_flush = time.monotonic()
+
+            def on_result(task: RecordTask, result, error: str | None, retries: int) -> None:
+                worker = _worker_text(result)
+                outcome = _store(queue, task, result, error, versions, digests[task.record_id], worker, retries)
+                tally.finish(task.record_id, outcome)
+                if outcome.run_id:
+                    pending_index.append(outcome.record_id)
+                flush()
+                tally.report(outcome)
+
+            try:
+                run_tasks(
+                    backend,
+                    clean_record,
+                    _tasks(queue, todo, token, versions, send_bytes),
+                    on_result,
+                    max_in_flight=slots * IN_FLIGHT_PER_WORKER if slots > 1 else 1,
+                    on_wait=flush,
+                    keep=lambda task: replace(task, data=None),
+                )
+            except BackendLost as exc:
+                stored = sum(1 for o in tally.outcomes if o.run_id)
+                raise BackendLost(
+                    f"{exc.one_line()}; the {stored} run(s) stored before stay, run 'tracevet clean' again to carry on"
+                ) from None
+            finally:
+                flush(force=True)
+            return tally.outcomes
         finally:
-            flush(force=True)
-        return outcomes
-    finally:
-        try:
             if own_backend is not None:
                 own_backend.close()
-        finally:
-            os.close(lock_fd)
 
 
 def _digests(todo: list[tuple[str, dict]]) -> dict[str, str]:
@@ -283,7 +373,6 @@ def _store(
 ) -> CleanOutcome:
     """Check a worker's result and store it as a run (this process is the queue's only writer)."""
     from tracevet.cleaning import CleaningSettings
-    from tracevet.errors import TracevetError
 
     if error is not None:
         return CleanOutcome(task.record_id, error=error, retries=retries, worker=worker)
@@ -295,7 +384,7 @@ def _store(
         # The run records the settings the worker applied (mains auto resolved on the record).
         applied = getattr(result, "applied_settings", None) or task.settings
         settings = CleaningSettings.from_dict(applied, source=f"{task.record_id}: settings")
-        extra = {"worker": result.worker, "software": result.versions, "worker_seconds": round(result.seconds, 3)}
+        extra = worker_extra(result)
         if getattr(result, "mains_detection", None):
             extra["mains_detection"] = result.mains_detection
         run_id = queue.store_run(
@@ -310,11 +399,8 @@ def _store(
         assessment = result.assessment
         severity, n_flags = assessment.worst_severity, len(assessment.flags)
         return CleanOutcome(task.record_id, run_id, severity, n_flags, retries=retries, worker=worker)
-    except TracevetError as exc:
-        return CleanOutcome(task.record_id, error=exc.one_line(), retries=retries, worker=worker)
-    except OSError as exc:
-        problem = f"could not store the run ({inert(exc, 160)})"
-        return CleanOutcome(task.record_id, error=problem, retries=retries, worker=worker)
+    except (TracevetError, OSError) as exc:
+        return CleanOutcome(task.record_id, error=store_failure(exc), retries=retries, worker=worker)
 
 
 def clean_one(root: str, record_id: str, settings: dict) -> CleanOutcome:

@@ -21,20 +21,34 @@ stores it.
 
 from __future__ import annotations
 
-import os
 import time
 import uuid
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
-from tracevet.errors import InputError, TracevetError
-from tracevet.text import inert
-from tracevet.workqueue import tasks as tasks_mod
+from tracevet.errors import TracevetError
 from tracevet.workqueue.backend import run_tasks
+from tracevet.workqueue.batch import (
+    BatchProgress,
+    backend_traits,
+    batch_lock,
+    open_backend,
+    provenance_problem,
+    record_task,
+    shape_problem,
+    store_failure,
+    worker_extra,
+)
 from tracevet.workqueue.index import TO_REVIEW
-from tracevet.workqueue.locking import try_hold
-from tracevet.workqueue.records import original_path, read_meta
-from tracevet.workqueue.tasks import RecordTask, software_versions, version_difference, worker_identity
+from tracevet.workqueue.records import read_meta
+from tracevet.workqueue.tasks import (
+    RecordTask,
+    progress_reporter,
+    read_original,
+    software_versions,
+    version_difference,
+    worker_identity,
+)
 
 
 @dataclass(frozen=True)
@@ -92,7 +106,7 @@ def severity_counts(flags) -> tuple[bool, bool, int, int]:
     """(any fail, any warn, fails, warns) of flags given as dicts or Flag objects; smaller is better."""
 
     def severity(f):
-        return f.get("severity") if isinstance(f, dict) else f.severity
+        return f.get("severity") if isinstance(f, dict) else getattr(f, "severity", None)
 
     fails = sum(1 for f in flags if severity(f) == "fail")
     warns = sum(1 for f in flags if severity(f) == "warn")
@@ -116,20 +130,11 @@ def suggest_record(task: SuggestTask) -> SuggestResult:
     if difference is not None:
         result.error = f"refused: worker runs other software ({difference})"
         return result
-    sink = tasks_mod._SINK
-    last = [0.0]
-
-    def progress(fraction: float, _message: str) -> None:
-        now = time.monotonic()
-        if sink is not None and (now - last[0] >= 0.2 or fraction >= 1.0):
-            last[0] = now
-            try:
-                sink(record.record_id, float(fraction))
-            except Exception:  # progress is a nicety
-                pass
+    report = progress_reporter(record.record_id, share=1.0, final=True)
+    progress = (lambda fraction, _message: report(fraction)) if report is not None else None
 
     try:
-        original, digest = tasks_mod._read_original(record)
+        original, digest = read_original(record)
         result.input_sha256 = digest
         if original is None:
             result.error = "the original read on the worker does not match its checksum"
@@ -169,27 +174,13 @@ def _tasks(queue, todo, token: str, versions: dict, send_bytes: bool, threads: i
     limits = dict(queue.settings.flag_limits)
     for record_id in todo:
         meta = read_meta(queue.paths, record_id)
-        path = original_path(queue.paths, record_id, meta)
         newest = queue.runs(record_id)[-1]
         try:
             assessment = load_assessment(queue.paths, record_id, newest.run_id)
             stretches = flagged_stretches(assessment, meta.get("duration_s") or 0.0)
         except TracevetError:
             stretches = []
-        record = RecordTask(
-            record_id=record_id,
-            token=f"{token}/{record_id}",
-            settings=base,
-            flag_limits=limits,
-            original_name=path.name,
-            original_sha256=str(meta.get("original_sha256")),
-            read_fs=meta.get("read_fs"),
-            kind=meta.get("kind"),
-            units=meta.get("units"),
-            versions=versions,
-            path=None if send_bytes else str(path),
-            data=path.read_bytes() if send_bytes else None,
-        )
+        record = record_task(queue, record_id, token, base, limits, versions, send_bytes, meta)
         yield SuggestTask(record, newest.run_id, newest.settings, tuple(newest.flags), tuple(stretches), threads)
 
 
@@ -206,36 +197,25 @@ def _store(queue, task: SuggestTask, result, error: str | None, versions: dict) 
         return SuggestOutcome(record_id, error=result.error)
     if result.skipped:
         return SuggestOutcome(record_id, skipped=result.skipped)
-    difference = version_difference(versions, result.versions or {})
-    if difference is not None:
-        return SuggestOutcome(record_id, error=f"refused: result from a worker with other software ({difference})")
-    if result.input_sha256 != task.record.original_sha256:
-        problem = "refused: the worker used bytes that do not match the original's checksum"
+    problem = provenance_problem(result, task.record, versions, verb="used")
+    if problem is not None:
         return SuggestOutcome(record_id, error=problem)
     try:
-        meta = read_meta(queue.paths, record_id)
-        samples = getattr(result.cleaned, "samples", None)
-        if samples is None or samples.shape != (meta.get("n_samples"), meta.get("n_channels")):
-            return SuggestOutcome(record_id, error="refused: the cleaned recording does not have the original's shape")
+        problem = shape_problem(result.cleaned, read_meta(queue.paths, record_id))
+        if problem is not None:
+            return SuggestOutcome(record_id, error=problem)
         runs = queue.runs(record_id)
         if runs and runs[-1].run_id != task.newest_run:
             return SuggestOutcome(record_id, skipped=f"a newer run ({runs[-1].run_id}) appeared meanwhile")
         settings = CleaningSettings.from_dict(result.settings or {}, source=f"{record_id}: suggested settings")
-        extra = {
-            "suggested": result.summary,
-            "worker": result.worker,
-            "software": result.versions,
-            "worker_seconds": round(result.seconds, 3),
-        }
+        extra = {"suggested": result.summary, **worker_extra(result)}
         run_id = queue.store_run(
             record_id, result.cleaned, result.assessment, settings, update_index=False,
             batch_token=task.record.token, extra=extra, report=result.report,
         )
         return SuggestOutcome(record_id, run_id, result.assessment.worst_severity, len(result.assessment.flags))
-    except TracevetError as exc:
-        return SuggestOutcome(record_id, error=exc.one_line())
-    except OSError as exc:
-        return SuggestOutcome(record_id, error=f"could not store the run ({inert(exc, 160)})")
+    except (TracevetError, OSError) as exc:
+        return SuggestOutcome(record_id, error=store_failure(exc))
 
 
 def suggest_flagged(
@@ -255,57 +235,36 @@ def suggest_flagged(
     InputError
         When a ``tracevet clean`` is running on this queue.
     """
-    from tracevet.workqueue.batch import open_backend
-
-    if workers < 1:
-        raise InputError("--workers", "must be at least 1")
-    lock_fd = try_hold(queue.paths.clean_lock)
-    if lock_fd is None:
-        raise InputError(str(queue.root), "another 'tracevet clean' is already running on this queue")
-    backend = None
-    try:
-        todo = [item.id for item in queue.records() if wants_suggestion(item)]
-        total = len(todo)
-        outcomes: list[SuggestOutcome] = []
-        if progress:
-            progress(0, total, None)
-        if total == 0:
-            return outcomes
-        partial: dict[str, float] = {}
-
-        def part(record_id: str, fraction: float) -> None:
-            partial[record_id] = fraction
-            if progress:
-                progress(len(outcomes) + sum(partial.values()), total, None)
-
-        backend = open_backend(min(workers, total), cluster, part)
-        remote = bool(getattr(backend, "remote", False))
-        send_bytes = remote and not getattr(backend, "shared_filesystem", False)
-        slots = int(getattr(backend, "slots", None) or min(workers, total))
-        threads = 2 if slots == 1 and not remote else 1  # in this process: both cores for one search
-        versions = software_versions()
-        token = "suggest-" + uuid.uuid4().hex
-
-        def on_result(task: SuggestTask, result, error: str | None, retries: int) -> None:
-            partial.pop(task.record.record_id, None)
-            outcome = _store(queue, task, result, error, versions)
-            outcomes.append(outcome)
-            if outcome.run_id:
-                queue.refresh_index([outcome.record_id])
-            if progress:
-                progress(len(outcomes) + sum(partial.values()), total, outcome)
-
-        run_tasks(
-            backend,
-            suggest_record,
-            _tasks(queue, todo, token, versions, send_bytes, threads),
-            on_result,
-            max_in_flight=max(1, slots),
-        )
-        return outcomes
-    finally:
+    with batch_lock(queue, workers):
+        backend = None
         try:
+            todo = [item.id for item in queue.records() if wants_suggestion(item)]
+            total = len(todo)
+            tally = BatchProgress(progress, total)
+            tally.report()
+            if total == 0:
+                return tally.outcomes
+            backend = open_backend(min(workers, total), cluster, tally.part)
+            remote, send_bytes, slots = backend_traits(backend, workers, total)
+            threads = 2 if slots == 1 and not remote else 1  # in this process: both cores for one search
+            versions = software_versions()
+            token = "suggest-" + uuid.uuid4().hex
+
+            def on_result(task: SuggestTask, result, error: str | None, retries: int) -> None:
+                outcome = _store(queue, task, result, error, versions)
+                tally.finish(task.record.record_id, outcome)
+                if outcome.run_id:
+                    queue.refresh_index([outcome.record_id])
+                tally.report(outcome)
+
+            run_tasks(
+                backend,
+                suggest_record,
+                _tasks(queue, todo, token, versions, send_bytes, threads),
+                on_result,
+                max_in_flight=max(1, slots),
+            )
+            return tally.outcomes
+        finally:
             if backend is not None:
                 backend.close()
-        finally:
-            os.close(lock_fd)

@@ -177,8 +177,14 @@ class RecordResult:
     error: str | None = None
 
 
-def _reporter(record_id: str) -> Callable[[float], None] | None:
-    """A progress callback for the engine that forwards at most every 0.2 s to the sink."""
+def progress_reporter(
+    record_id: str, share: float = CLEANING_SHARE, final: bool = False
+) -> Callable[[float], None] | None:
+    """A progress callback ``report(fraction)`` for work on one record; None when no sink is set.
+
+    It forwards ``share * fraction`` to the sink (:func:`set_progress_sink`)
+    at most every 0.2 s, and with ``final`` always the last call (fraction 1).
+    """
     sink = _SINK
     if sink is None:
         return None
@@ -186,10 +192,10 @@ def _reporter(record_id: str) -> Callable[[float], None] | None:
 
     def report(fraction: float) -> None:
         now = time.monotonic()
-        if now - last[0] >= 0.2:
+        if now - last[0] >= 0.2 or (final and fraction >= 1.0):
             last[0] = now
             try:
-                sink(record_id, CLEANING_SHARE * float(fraction))
+                sink(record_id, share * float(fraction))
             except Exception:  # progress is a nicety; never fail a record over it
                 pass
 
@@ -206,8 +212,9 @@ def _scratch_dir(size: int) -> str | None:
     return None
 
 
-def _read_original(task: RecordTask):
-    """(Recording, SHA-256 of the bytes read) from the task's bytes or path."""
+def read_original(task: RecordTask):
+    """(Recording, SHA-256 of the bytes read) from the task's bytes or path; the Recording is None
+    when the bytes do not match the original's checksum."""
     from tracevet.recording import read_recording
 
     if task.data is not None:
@@ -257,7 +264,7 @@ def clean_record(task: RecordTask) -> RecordResult:
         result.error = f"refused: worker {who} runs other software ({difference})"
         return result
     try:
-        original, digest = _read_original(task)
+        original, digest = read_original(task)
         result.input_sha256 = digest
         if original is None:
             result.error = (
@@ -266,7 +273,7 @@ def clean_record(task: RecordTask) -> RecordResult:
             return result
         settings = CleaningSettings.from_dict(task.settings, source=f"{task.record_id}: settings")
         limits = limits_from_mapping(task.flag_limits, "flag_limits") if task.flag_limits else None
-        result.cleaned, report = clean_with_report(original, settings, progress=_reporter(task.record_id))
+        result.cleaned, report = clean_with_report(original, settings, progress=progress_reporter(task.record_id))
         result.assessment = assess(original, result.cleaned, limits=limits)
         result.settings_digest = settings.digest()
         result.applied_settings = report.settings.to_dict()
