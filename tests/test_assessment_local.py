@@ -106,24 +106,6 @@ def test_fast_wander_of_the_real_record_removed_by_the_engine_is_no_excursion():
     assert flag is not None and any(s <= 51.0 and e >= 30.0 for s, e in flag.where)
 
 
-def test_end_excursion_after_the_last_whole_beat_is_flagged_at_the_end():
-    # An exponential of 0.3 mV (time constant 0.7 s) added at the end of a
-    # McSharry et al. (2003) model ECG: most of it lies after the last beat
-    # whose whole window is in the trace, so the beat cut by the end is read
-    # on its inner anchors. Limit 0.1 mV: IEC 60601-2-25 / AAMI EC11 impulse
-    # test, baseline displacement (from memory).
-    fs = 500.0
-    rec = syn.synthetic_ecg(30.2, fs, heart_rate_bpm=60.0, hrv_std_bpm=0.0, seed=7)
-    x = rec.signal
-    t = np.arange(x.size) / fs
-    last_r = float(rec.r_peaks[-1]) / fs
-    assert x.size / fs - last_r < 0.6  # the last beat's window (0.6 s after R) is cut by the end
-    flag = _flag(_assess_mv(x, x - 0.3 * np.exp(-(t[-1] - t) / 0.7), fs), "baseline-excursion")
-    assert flag is not None
-    assert flag.where[-1][1] > x.size / fs - 1.0 and flag.where[0][0] > x.size / fs - 3.0
-    assert _flag(_assess_mv(x, x.copy(), fs), "baseline-excursion") is None
-
-
 @pytest.fixture(scope="module")
 def model():
     # Constant heart rate, no variability: every beat of the model is the same.

@@ -503,34 +503,21 @@ def anchor_levels(signal: np.ndarray, centres: np.ndarray, pre: int, post: int, 
 
     The anchors are those of the slow-trend removal (T-P segment before P,
     isoelectric window, T-P segment after T), read on ``signal`` in the beat
-    window [c - pre, c + post]; the median of three keeps one anchor that
-    falls on a wave from moving the level (knot-based baseline, common
-    practice). A beat cut by an end of the trace is read on the anchors that
-    lie wholly inside it (the mean of two; ``NaN`` without the PQ anchor or
-    with it alone), so the last beat before an end is measured where an end
-    excursion is largest. Chunked over beats.
+    window [c - pre, c + post], indices clipped to the trace; the median of
+    three keeps one anchor that falls on a wave from moving the level
+    (knot-based baseline, common practice). Chunked over beats.
     """
     m = pre + post + 1
-    starts = np.array([0, iso.start, m - edge]) - pre
-    stops = np.array([edge, iso.stop, m]) - pre
-    cols = np.concatenate([np.arange(a, b) for a, b in zip(starts, stops)])
-    sizes = stops - starts
-    bounds = np.concatenate([[0], np.cumsum(sizes)])
+    cols = np.concatenate([np.arange(edge), np.arange(iso.start, iso.stop), np.arange(m - edge, m)]) - pre
+    sizes = (edge, iso.stop - iso.start, edge)
     out = np.empty(centres.size)
     last = signal.size - 1
     for start in range(0, centres.size, CHUNK_BEATS):
         part = centres[start : start + CHUNK_BEATS]
         values = signal[np.clip(part[:, None] + cols[None, :], 0, last)].astype(np.float64)
-        means = np.stack([values[:, bounds[j] : bounds[j + 1]].mean(axis=1) for j in range(3)], axis=1)
-        inside = (part[:, None] + starts[None, :] >= 0) & (part[:, None] + stops[None, :] - 1 <= last)
-        means[~inside] = np.nan
-        count = inside.sum(axis=1)
-        level = np.full(part.size, np.nan)
-        three = count == 3
-        level[three] = np.median(means[three], axis=1)
-        two = (count == 2) & inside[:, 1]
-        level[two] = np.nanmean(means[two], axis=1)
-        out[start : start + part.size] = level
+        a, b = sizes[0], sizes[0] + sizes[1]
+        means = np.stack([values[:, :a].mean(axis=1), values[:, a:b].mean(axis=1), values[:, b:].mean(axis=1)], axis=1)
+        out[start : start + part.size] = np.median(means, axis=1)
     return out
 
 
@@ -568,10 +555,9 @@ def baseline_excursions(
     beats are judged through the running median over :data:`STRETCH_BEATS`
     beats; the first and last beat of the record and of each stretch between
     pauses are judged alone (an excursion added at an end decays within a few
-    beats), with :data:`END_K` standard errors of a single beat's level; a
-    beat cut by an end is read on the anchors inside the trace
-    (:func:`anchor_levels`). The trace before the first and after the last
-    readable beat is left to the edge check (:func:`~tracevet.assessment.signal_checks.edge_deviation`).
+    beats), with :data:`END_K` standard errors of a single beat's level. The
+    trace before the first and after the last whole beat window is left to
+    the edge check (:func:`~tracevet.assessment.signal_checks.edge_deviation`).
 
     Parameters
     ----------
@@ -582,15 +568,13 @@ def baseline_excursions(
         after the noise allowance, are returned).
     """
     n = original.size
+    whole = (centres >= pre) & (centres < n - post)  # beats with their whole window (anchors) in the trace
+    centres, labels = centres[whole], labels[whole]
     if centres.size < 2 or warn is None:
         return Excursions(None, [], 0, 0, 0.0)
     edge = max(1, int(round(0.03 * fs)))
     lx = anchor_levels(original, centres, pre, post, iso, edge)
     ly = anchor_levels(cleaned, centres, pre, post, iso, edge)
-    readable = np.isfinite(lx) & np.isfinite(ly)  # at least the PQ anchor and one T-P anchor inside the trace
-    centres, labels, lx, ly = centres[readable], labels[readable], lx[readable], ly[readable]
-    if centres.size < 2:
-        return Excursions(None, [], 0, 0, 0.0)
     times = centres / fs
     group = np.where(labels == 1, 1.0, 0.0)
     removed = lx - ly
@@ -611,17 +595,7 @@ def baseline_excursions(
     rr = float(np.median(np.diff(centres))) if n_beats > 1 else n
     pause = np.flatnonzero(np.diff(centres) > max(GAP_MIN_S * fs, GAP_RR * rr))
     end_beats = np.unique(np.concatenate([[0, n_beats - 1], pause, pause + 1]))
-    starts_after = np.unique(np.concatenate([[0], pause + 1]))
-    inward = np.where(np.isin(end_beats, starts_after), 1, -1)
-    end_excess = excess[end_beats]
-    # A beat cut by the trace's end is read on two anchors, one of which may sit on the
-    # previous beat's T wave: its own level is not trusted to explain what was removed.
-    cut = (centres[end_beats] < pre) | (centres[end_beats] >= n - post)
-    if np.any(cut):
-        held = held_near_end(removed, group, end_beats[cut], inward[cut]) * to_limit_unit
-        end_excess[cut] = np.minimum(end_excess[cut], held)
-    excess[end_beats] = end_excess
-    end_hit = end_excess > max(warn, allow_end)
+    end_hit = excess[end_beats] > max(warn, allow_end)
     beyond[end_beats[end_hit]] = True
     values.append(float(np.max(excess[end_beats])))
     spans = [((int(c) - pre) / fs, (int(c) + post) / fs) for c in centres[beyond]]
@@ -668,42 +642,16 @@ def trace_means(signal: np.ndarray, at: np.ndarray, widths: tuple, chunk: int = 
     return sums / np.maximum(hi - lo, 1)
 
 
-# Beats inward from an end beat whose levels give its local reference.
-END_NEIGHBOURS = 4
-
-
-def held_near_end(removed: np.ndarray, group: np.ndarray, ends: np.ndarray, inward: np.ndarray) -> np.ndarray:
-    """How far an end beat's removed level differs from its inward neighbours' trend (record units).
-
-    ``|R_e - line(R_nb)|``, the neighbours' straight line read at the end beat, with ``R = Lx - Ly`` the removed level and
-    ``nb`` the :data:`END_NEIGHBOURS` beats inward from the end beat ``e``
-    (``inward`` +1 after a start, -1 before an end), the second morphology
-    group's own offset taken out first. A cleaning that holds its baseline
-    estimate near an end (a running median held at the last full window)
-    removes there what it removed next to it: the end beat keeps its place
-    relative to its neighbours, wander included, and nothing was added. An
-    excursion added at the end changes the removed level at the end beat only.
-    """
-    n = removed.size
-    r = removed.astype(np.float64, copy=True)
-    if np.any(group > 0) and np.any(group == 0):
-        r[group > 0] -= np.median(removed[group > 0]) - np.median(removed[group == 0])
-    steps = np.arange(1, END_NEIGHBOURS + 1, dtype=np.float64)
-    nb = np.clip(ends[:, None] + inward[:, None] * steps[None, :].astype(np.int64), 0, n - 1)
-    # Straight line through the neighbours' removed levels, read at the end beat (least squares).
-    centred = steps - steps.mean()
-    slope = (r[nb] * centred[None, :]).sum(axis=1) / float((centred**2).sum())
-    at_end = r[nb].mean(axis=1) - slope * steps.mean()
-    return np.abs(r[ends] - at_end)
-
-
 def _first_inliers(lx: np.ndarray, target: np.ndarray, group: np.ndarray) -> np.ndarray:
     """Beats whose removed level a straight line in the original's level explains (trimmed least squares).
 
-    The start of :func:`unexplained_level`'s robust fit: few parameters
-    (slope, constant, second-group constant), so an added level shift or
-    swoop cannot be fitted away and stays out, while beats on the original's
-    own wander, however large or fast, stay in.
+    The start of :func:`unexplained_level`'s robust fit. Few parameters
+    (slope, constant, second-group constant): an added level shift or swoop
+    cannot be fitted away and stays out, while beats on the original's own
+    wander, however large or fast, stay in. (Trimming on the removed level
+    itself dropped exactly the beats where a faithful cleaning removed the
+    most wander, and the fit, held to the range of the beats kept, could then
+    never explain them: fast swings of record 208 were flagged.)
     """
     columns = [np.ones_like(lx), lx - np.median(lx)]
     if np.any(group > 0):
@@ -715,8 +663,9 @@ def _first_inliers(lx: np.ndarray, target: np.ndarray, group: np.ndarray) -> np.
             return np.ones(target.size, dtype=bool)
         coef, *_ = np.linalg.lstsq(design[keep], target[keep], rcond=None)
         residual = target - design @ coef
-        spread = MAD_TO_SD * float(np.median(np.abs(residual[keep] - np.median(residual[keep]))))
-        new_keep = np.abs(residual - np.median(residual[keep])) <= 2.5 * spread if spread > 0 else keep
+        centre = float(np.median(residual[keep]))
+        spread = MAD_TO_SD * float(np.median(np.abs(residual[keep] - centre)))
+        new_keep = np.abs(residual - centre) <= 2.5 * spread if spread > 0 else keep
         if np.array_equal(new_keep, keep):
             break
         keep = new_keep
@@ -732,9 +681,10 @@ def unexplained_level(lx: np.ndarray, removed: np.ndarray, slow: np.ndarray, gro
     itself and the moving means of the original trace (``slow``, one column
     per time scale, beats included: a high-pass also takes out the beats'
     own mean) plus a constant and a constant for the second morphology group,
-    weights >= 0 (non-negative least squares), refitted without the beats
-    whose residual is beyond 2.5 robust s.d. until the set settles (robust
-    regression by trimming, common practice). A level shift or a
+    weights >= 0 (non-negative least squares), first on the beats a straight
+    line in the original's level explains (:func:`_first_inliers`), then
+    refitted without the beats whose residual is beyond 2.5 robust s.d.
+    until the set settles (robust regression by trimming, common practice). A level shift or a
     start-up swoop the cleaning added is not in the original and stays in
     the residual. Returned: the residual's size less :data:`FIT_TOLERANCE`
     times the removed level's own size (record units, >= 0).
