@@ -287,11 +287,6 @@ class SuggestionActions:
         except RuntimeError:  # the app has closed
             pass
 
-    def stop_suggestion(self) -> None:
-        """Stop a search still running (leaving the record)."""
-        if self.suggestion_state is not None:
-            self.suggestion_state.cancel.set()
-
     # ---------------------------------------------------------------- display
     def suggestion_text(self) -> Text:
         """The status line (and, when asked, the side-by-side comparison)."""

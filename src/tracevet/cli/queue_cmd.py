@@ -243,7 +243,6 @@ def cmd_clean(args) -> int:
     """``tracevet clean QUEUE``: clean every waiting record with a progress bar."""
     from dataclasses import replace
 
-    from tracevet.cli.progress import ProgressBar
     from tracevet.workqueue.batch import clean_waiting
     from tracevet.workqueue.cluster import choose_cluster
 
@@ -255,45 +254,64 @@ def cmd_clean(args) -> int:
     cluster = choose_cluster(args.cluster, queue.settings.cluster, queue.settings.source, local=args.local)
     if cluster is not None and args.shared_filesystem:
         cluster = replace(cluster, shared_filesystem=True)
-    bar = None if args.quiet else ProgressBar("cleaning")
-    failures = []
-    retries = finished = 0
-
-    def progress(done, total, outcome):
-        nonlocal retries, finished
-        if outcome is not None:
-            finished += 1
-            retries += outcome.retries
-            if outcome.error:
-                failures.append(outcome)
-                if bar:
-                    bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
-        if bar and total:
-            bar.update(done, total, note=bar.rate_text(finished, retries))
-
-    outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=progress, cluster=cluster)
-    made = [o for o in outcomes if o.run_id]
-
-    def finish(code: int) -> int:
-        if not getattr(args, "suggest", False):
-            return code
-        from tracevet.cli.suggest_cmd import suggest_pass
-
-        return max(code, suggest_pass(queue, args, cluster))
-
+    shown = BatchProgressBar("cleaning", quiet=args.quiet, rate=True)
+    outcomes = clean_waiting(queue, workers=args.workers, overrides=args.overrides, progress=shown, cluster=cluster)
+    code = 0
     if not outcomes:
         print("nothing waiting to be cleaned")
-        return finish(0)
-    where = f" on {inert(cluster.address, 80)}" if cluster is not None else ""
-    print(f"cleaned {len(made)} record(s){where}: {severity_words(made)}")
-    if retries:
-        print(f"{retries} task(s) retried (a worker died or a task failed and was run again)")
-    if failures:
-        print_failures(
-            failures, bar, f"tracevet: {len(failures)} record(s) could not be cleaned (listed above); they stay waiting"
-        )
-        return finish(1)
-    return finish(0)
+    else:
+        made = [o for o in outcomes if o.run_id]
+        where = f" on {inert(cluster.address, 80)}" if cluster is not None else ""
+        print(f"cleaned {len(made)} record(s){where}: {severity_words(made)}")
+        if shown.retries:
+            print(f"{shown.retries} task(s) retried (a worker died or a task failed and was run again)")
+        if shown.failures:
+            count = len(shown.failures)
+            shown.print_failures(f"tracevet: {count} record(s) could not be cleaned (listed above); they stay waiting")
+            code = 1
+    if getattr(args, "suggest", False):
+        from tracevet.cli.suggest_cmd import suggest_pass
+
+        code = max(code, suggest_pass(queue, args, cluster))
+    return code
+
+
+class BatchProgressBar:
+    """``progress(done, total, outcome)`` of a batch shown on a progress bar (none when ``quiet``).
+
+    Counts finished records and retries, keeps the outcomes with an error
+    and shows each as it comes; ``rate`` adds records per minute and retries
+    to the bar.
+    """
+
+    def __init__(self, label: str, quiet: bool = False, rate: bool = False):
+        from tracevet.cli.progress import ProgressBar
+
+        self.bar = None if quiet else ProgressBar(label)
+        self.rate = rate
+        self.failures: list = []
+        self.finished = 0
+        self.retries = 0
+
+    def __call__(self, done: float, total: int, outcome) -> None:
+        """Take one progress report of the batch."""
+        if outcome is not None:
+            self.finished += 1
+            self.retries += getattr(outcome, "retries", 0)
+            if outcome.error:
+                self.failures.append(outcome)
+                if self.bar:
+                    self.bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
+        if self.bar and total:
+            note = self.bar.rate_text(self.finished, self.retries) if self.rate else ""
+            self.bar.update(done, total, note=note)
+
+    def print_failures(self, summary: str) -> None:
+        """Each failed record's line on stderr (unless the bar already showed it), then ``summary``."""
+        if self.bar is None:
+            for outcome in self.failures:
+                print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
+        print(summary, file=sys.stderr)
 
 
 def severity_words(made) -> str:
@@ -303,14 +321,6 @@ def severity_words(made) -> str:
         f"{counts.get('fail', 0)} with fail flags, {counts.get('warn', 0)} with warnings, "
         f"{counts.get('none', 0)} without flags"
     )
-
-
-def print_failures(failures, bar, summary: str) -> None:
-    """Each failed record's line on stderr (unless the progress bar already showed it), then ``summary``."""
-    if bar is None:
-        for outcome in failures:
-            print(f"tracevet: {outcome.record_id}: {outcome.error}", file=sys.stderr)
-    print(summary, file=sys.stderr)
 
 
 # -------------------------------------------------------------------- status
@@ -462,34 +472,9 @@ def cmd_log(args) -> int:
     """``tracevet log QUEUE [--record ID] [--json] [--verify | --repair]``."""
     queue = _open(args)
     if args.verify:
-        from tracevet.workqueue.verify import head_summary
-
-        problems = queue.verify()
-        errors = [p for p in problems if not p.repaired]
-        head = head_summary(queue)
-        if args.json:
-            print(json.dumps({"ok": not errors, "problems": [p.to_dict() for p in problems], "head": head}))
-        else:
-            for problem in problems:
-                print(inert(str(problem)))
-            if errors:
-                print(f"tracevet: {len(errors)} problem(s) found", file=sys.stderr)
-            else:
-                print(
-                    f"log verified: {head['entries']} entries, chain intact, every referenced file matches its "
-                    f"checksum; newest entry hash {head['hash']}"
-                )
-        return 1 if errors else 0
+        return _verify_log(queue, args.json)
     if args.repair:
-        entry = queue.repair_log(_reviewer(args))
-        if entry is None:
-            print("nothing to repair: the log ends with a complete entry")
-        else:
-            print(
-                f"removed a torn last line ({entry.get('removed_bytes')} bytes, saved as {entry.get('saved_as')}); "
-                f"logged as entry {entry.seq}"
-            )
-        return 0
+        return _repair_log(queue, _reviewer(args))
     record = None
     if args.record is not None:
         from tracevet.workqueue.ids import check_record_id
@@ -517,6 +502,41 @@ def cmd_log(args) -> int:
             f"tracevet: the log ends with a torn line (line {torn.line}, {torn.size} bytes) from an interrupted "
             f"write; 'tracevet log {inert(queue.root, 100)} --repair' removes it",
             file=sys.stderr,
+        )
+    return 0
+
+
+def _verify_log(queue, as_json: bool) -> int:
+    """``tracevet log --verify``: every problem, then the verdict; 1 when anything is wrong."""
+    from tracevet.workqueue.verify import head_summary
+
+    problems = queue.verify()
+    errors = [p for p in problems if not p.repaired]
+    head = head_summary(queue)
+    if as_json:
+        print(json.dumps({"ok": not errors, "problems": [p.to_dict() for p in problems], "head": head}))
+        return 1 if errors else 0
+    for problem in problems:
+        print(inert(str(problem)))
+    if errors:
+        print(f"tracevet: {len(errors)} problem(s) found", file=sys.stderr)
+        return 1
+    print(
+        f"log verified: {head['entries']} entries, chain intact, every referenced file matches its "
+        f"checksum; newest entry hash {head['hash']}"
+    )
+    return 0
+
+
+def _repair_log(queue, reviewer: str) -> int:
+    """``tracevet log --repair``: remove a torn last line (logged), or say there is none."""
+    entry = queue.repair_log(reviewer)
+    if entry is None:
+        print("nothing to repair: the log ends with a complete entry")
+    else:
+        print(
+            f"removed a torn last line ({entry.get('removed_bytes')} bytes, saved as {entry.get('saved_as')}); "
+            f"logged as entry {entry.seq}"
         )
     return 0
 

@@ -136,25 +136,11 @@ def register(subparsers) -> argparse.ArgumentParser:
 
 def suggest_pass(queue, args: argparse.Namespace, cluster=None) -> int:
     """``tracevet clean QUEUE --suggest``: a suggested run for every flagged record; 1 if any record failed."""
-    from tracevet.cli.queue_cmd import print_failures, severity_words
+    from tracevet.cli.queue_cmd import BatchProgressBar, severity_words
     from tracevet.workqueue.suggested import suggest_flagged
 
-    bar = None
-    if not args.quiet:
-        from tracevet.cli.progress import ProgressBar
-
-        bar = ProgressBar("suggesting")
-    errors = []
-
-    def progress(done, total, outcome):
-        if outcome is not None and outcome.error:
-            errors.append(outcome)
-            if bar:
-                bar.message(f"tracevet: {outcome.record_id}: {outcome.error}")
-        if bar and total:
-            bar.update(done, total)
-
-    outcomes = suggest_flagged(queue, workers=max(1, int(args.workers)), progress=progress, cluster=cluster)
+    shown = BatchProgressBar("suggesting", quiet=args.quiet)
+    outcomes = suggest_flagged(queue, workers=max(1, int(args.workers)), progress=shown, cluster=cluster)
     if not outcomes:
         print("no flagged record waiting for review: nothing to suggest")
         return 0
@@ -165,7 +151,7 @@ def suggest_pass(queue, args: argparse.Namespace, cluster=None) -> int:
             print(f"  {inert(outcome.record_id)}: {outcome.run_id} (suggested, {outcome.n_flags} flag(s))")
         elif outcome.skipped:
             print(f"  {inert(outcome.record_id)}: no run added: {inert(outcome.skipped, 200)}")
-    if errors:
-        print_failures(errors, bar, f"tracevet: no suggestion for {len(errors)} record(s) (listed above)")
+    if shown.failures:
+        shown.print_failures(f"tracevet: no suggestion for {len(shown.failures)} record(s) (listed above)")
         return 1
     return 0

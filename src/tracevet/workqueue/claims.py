@@ -252,13 +252,6 @@ def check_holder(
     return current, reason
 
 
-def touch(
-    paths: QueuePaths, record_id: str, reviewer: str, idle_minutes: float
-) -> tuple[Claim, Claim | None, str | None]:
-    """Record activity on a claim held by ``reviewer`` (re-claiming it if it had lapsed)."""
-    return take(paths, record_id, reviewer, idle_minutes)
-
-
 def release(paths: QueuePaths, record_id: str, reviewer: str) -> bool:
     """Remove ``reviewer``'s claim on ``record_id``; True if there was one.
 

@@ -247,7 +247,6 @@ class DaskBackend:
             self.close()
             raise InputError(settings.source, f"no usable worker at {where} ({_first_line(exc)})") from None
         self._completed = distributed.as_completed(loop=self.client.loop)
-        self._attempts: dict = {}
 
     def _check_workers(self) -> None:
         """Refuse a cluster on which no worker runs this client's software versions."""

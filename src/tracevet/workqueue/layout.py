@@ -51,8 +51,7 @@ RUNS_DIR = "runs"
 RECORD_META = "record.json"
 RUN_META = "run.json"
 RUN_SETTINGS = "settings.yaml"
-ASSESSMENT_NAME = "assessment.json"
-BEATS_NAME = "beats.npz"
+# A run's assessment files are named by tracevet.assessment.result (JSON_NAME, BEATS_NAME).
 
 # Files that may sit in a folder before `init` turns it into a queue (the
 # repository's own queue/ folder carries these).

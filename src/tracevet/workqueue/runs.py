@@ -33,7 +33,7 @@ from tracevet.recording.atomic import fsync_dir
 from tracevet.recording.numpy_format import write_npz
 from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.ids import check_record_id, is_run_id, run_id_for, run_number
-from tracevet.workqueue.layout import ASSESSMENT_NAME, RUN_META, RUN_SETTINGS, QueuePaths
+from tracevet.workqueue.layout import RUN_META, RUN_SETTINGS, QueuePaths
 from tracevet.workqueue.log import jsonable
 from tracevet.workqueue.records import READ_ONLY, copy_verified, write_durable
 from tracevet.workqueue.settings import utc_now_text
@@ -311,9 +311,9 @@ def load_cleaned(paths: QueuePaths, record_id: str, info: RunInfo, record_meta: 
 
 def load_assessment(paths: QueuePaths, record_id: str, run_id: str):
     """The saved assessment of a run (``tracevet.assessment.Assessment``)."""
-    from tracevet.assessment import Assessment
+    from tracevet.assessment.result import JSON_NAME, Assessment
 
     folder = paths.run_dir(record_id, run_id)
-    if not (folder / ASSESSMENT_NAME).exists():
+    if not (folder / JSON_NAME).exists():
         raise InputError(f"{record_id}/{run_id}", "run has no assessment")
     return Assessment.load(folder)

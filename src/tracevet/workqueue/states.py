@@ -48,11 +48,3 @@ REVIEW_STATES = (RecordState.TO_REVIEW, RecordState.IN_REVIEW)
 STATE_AFTER = {"accept": RecordState.ACCEPTED, "reject": RecordState.REJECTED, "rerun": RecordState.SENT_BACK}
 # Past-tense words of each decision, for messages ("rejected by mira").
 DECISION_PAST = {"accept": "accepted", "reject": "rejected", "rerun": "sent back for a re-run"}
-
-
-def as_state(value: object) -> RecordState | None:
-    """``value`` as a :class:`RecordState`, or None when it is not one."""
-    try:
-        return RecordState(str(value))
-    except ValueError:
-        return None

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import time
 import uuid
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Callable
 
 from tracevet.errors import TracevetError
@@ -41,14 +41,7 @@ from tracevet.workqueue.batch import (
 )
 from tracevet.workqueue.index import TO_REVIEW
 from tracevet.workqueue.records import read_meta
-from tracevet.workqueue.tasks import (
-    RecordTask,
-    progress_reporter,
-    read_original,
-    software_versions,
-    version_difference,
-    worker_identity,
-)
+from tracevet.workqueue.tasks import RecordTask, WorkerResult, progress_reporter, read_original, software_versions
 
 
 @dataclass(frozen=True)
@@ -77,22 +70,16 @@ class SuggestTask:
 
 
 @dataclass
-class SuggestResult:
-    """What a worker sends back: the suggestion's cleaned record and assessment, or why not."""
+class SuggestResult(WorkerResult):
+    """What a worker sends back: the suggestion's cleaned record and assessment, or why not
+    (with :class:`tracevet.workqueue.tasks.WorkerResult`'s fields)."""
 
-    record_id: str
-    token: str
     cleaned: Any = None
     assessment: Any = None
     settings: dict | None = None
     report: Any = None
     summary: dict | None = None
     skipped: str | None = None
-    input_sha256: str | None = None
-    worker: dict = field(default_factory=dict)
-    versions: dict = field(default_factory=dict)
-    seconds: float = 0.0
-    error: str | None = None
 
 
 def wants_suggestion(item) -> bool:
@@ -125,10 +112,8 @@ def suggest_record(task: SuggestTask) -> SuggestResult:
 
     record = task.record
     started = time.monotonic()
-    result = SuggestResult(record.record_id, record.token, worker=worker_identity(), versions=software_versions())
-    difference = version_difference(record.versions, result.versions)
-    if difference is not None:
-        result.error = f"refused: worker runs other software ({difference})"
+    result = SuggestResult.on_this_worker(record)
+    if result.error:
         return result
     report = progress_reporter(record.record_id, share=1.0, final=True)
     progress = (lambda fraction, _message: report(fraction)) if report is not None else None

@@ -135,13 +135,50 @@ class RecordTask:
 
 
 @dataclass
-class RecordResult:
-    """What a worker sends back for one record.
+class WorkerResult:
+    """What a worker sends back for one record's task, whatever the work (cleaning, suggesting).
 
     Attributes
     ----------
     record_id, token : str
         As in the task.
+    input_sha256 : str or None
+        SHA-256 of the original bytes the worker read.
+    worker : dict
+        :func:`worker_identity`.
+    versions : dict
+        :func:`software_versions` of the worker.
+    seconds : float
+        Time spent on the worker.
+    error : str or None
+        One line when the work could not be done (bad data, refused worker).
+    """
+
+    record_id: str
+    token: str
+    input_sha256: str | None = None
+    worker: dict = field(default_factory=dict)
+    versions: dict = field(default_factory=dict)
+    seconds: float = 0.0
+    error: str | None = None
+
+    @classmethod
+    def on_this_worker(cls, task: RecordTask):
+        """A result for ``task`` made here; ``error`` is set when this worker runs other software than the client."""
+        result = cls(task.record_id, task.token, worker=worker_identity(), versions=software_versions())
+        difference = version_difference(task.versions, result.versions)
+        if difference is not None:
+            who = inert(result.worker.get("address") or result.worker["host"], 60)
+            result.error = f"refused: worker {who} runs other software ({difference})"
+        return result
+
+
+@dataclass
+class RecordResult(WorkerResult):
+    """What a worker sends back for one record it cleaned (with :class:`WorkerResult`'s fields).
+
+    Attributes
+    ----------
     cleaned : Recording or None
         The engine's output as it returned it (samples and metadata).
     assessment : Assessment or None
@@ -151,30 +188,13 @@ class RecordResult:
         The settings it applied (``mains: auto`` resolved on the record); the run records these.
     mains_detection : dict or None
         What ``mains: auto`` found (``MainsDetection.to_dict()`` plus ``applied``).
-    input_sha256 : str or None
-        SHA-256 of the original bytes the worker cleaned.
-    worker : dict
-        :func:`worker_identity`.
-    versions : dict
-        :func:`software_versions` of the worker.
-    seconds : float
-        Time spent on the worker.
-    error : str or None
-        One line when the record could not be cleaned (bad data, refused worker).
     """
 
-    record_id: str
-    token: str
     cleaned: object = None
     assessment: object = None
     settings_digest: str | None = None
     applied_settings: dict | None = None
     mains_detection: dict | None = None
-    input_sha256: str | None = None
-    worker: dict = field(default_factory=dict)
-    versions: dict = field(default_factory=dict)
-    seconds: float = 0.0
-    error: str | None = None
 
 
 def progress_reporter(
@@ -257,11 +277,8 @@ def clean_record(task: RecordTask) -> RecordResult:
     from tracevet.cleaning import CleaningSettings, clean_with_report
 
     started = time.monotonic()
-    result = RecordResult(task.record_id, task.token, worker=worker_identity(), versions=software_versions())
-    difference = version_difference(task.versions, result.versions)
-    if difference is not None:
-        who = inert(result.worker.get("address") or result.worker["host"], 60)
-        result.error = f"refused: worker {who} runs other software ({difference})"
+    result = RecordResult.on_this_worker(task)
+    if result.error:
         return result
     try:
         original, digest = read_original(task)

@@ -19,7 +19,6 @@ What is checked, and reported with the log line, record and file concerned:
 
 from __future__ import annotations
 
-
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -88,96 +87,33 @@ def _line_where(line: int | None) -> str:
     return f"{LOG_NAME} line {line}" if line is not None else LOG_NAME
 
 
+def _file_problem(paths, path: Path, message: str, record: str | None = None) -> Problem:
+    """A problem with one file of the queue: reported where the file is, and naming it."""
+    where = paths.relative(path)
+    return Problem(where, message, record=record, file=where)
+
+
 def verify_queue(queue, rebuild_index: bool = True) -> list[Problem]:
     """Check ``queue`` (a :class:`tracevet.workqueue.Queue`); return every problem found."""
     paths = queue.paths
-    problems: list[Problem] = []
     sums = _Sums()
     with queue._lock(shared=True):
         contents = log_mod.read_log(paths.log)
         head = log_mod.read_head(paths)
         line_faults = log_mod.line_problems(paths.log)
-    for line, record, message in log_mod.chain_problems(contents, head):
-        problems.append(Problem(_line_where(line), message, record=record, line=line, file=LOG_NAME))
-    bad_hash_lines = {p.line for p in problems if p.line is not None}
-    for line, message in line_faults:
-        if line not in bad_hash_lines:
-            problems.append(Problem(_line_where(line), message, line=line, file=LOG_NAME))
-
-    for check in (queue.settings.cleaning_settings, queue.settings.limits):
-        try:
-            check()
-        except Exception as exc:  # reported like every other problem, never fatal
-            message = exc.one_line() if hasattr(exc, "one_line") else str(exc)[:160]
-            problems.append(
-                Problem(
-                    paths.relative(paths.settings),
-                    f"unusable queue settings: {message}",
-                    file=paths.relative(paths.settings),
-                )
-            )
-
+    problems = _log_problems(contents, head, line_faults)
+    problems += _settings_problems(queue)
     record_ids = list_record_ids(paths)
     known_records: dict[str, dict] = {}
     for record_id in record_ids:
         problems.extend(_check_record(paths, record_id, sums, known_records))
-
     added = set()
     for entry in contents.entries:
-        named = entry.record
-        if entry.event == "add" and isinstance(named, str):
-            added.add(named)
-        if entry.event not in ("add", "decision") or not isinstance(named, str):
+        if entry.event not in ("add", "decision") or not isinstance(entry.record, str):
             continue
-        record_id = named
-        where = _line_where(entry.line)
-        meta = known_records.get(record_id)
-        if meta is None:
-            problems.append(
-                Problem(
-                    where,
-                    "names a record that is not in the queue (its folder is missing)",
-                    record=record_id,
-                    line=entry.line,
-                )
-            )
-            continue
-        original = original_path(paths, record_id, meta)
-        if entry.get("original_sha256") != sums.of(original):
-            problems.append(
-                Problem(
-                    where,
-                    f"original checksum in the entry does not match {paths.relative(original)}",
-                    record=record_id,
-                    line=entry.line,
-                    file=paths.relative(original),
-                )
-            )
-        if entry.event == "decision":
-            run_id = entry.run
-            if not isinstance(run_id, str) or run_id not in list_runs(paths, record_id):
-                problems.append(
-                    Problem(
-                        where,
-                        f"signs off run {str(run_id)[:20]!r}, which does not exist",
-                        record=record_id,
-                        line=entry.line,
-                    )
-                )
-                continue
-            cleaned_name = entry.get("cleaned_file") or "cleaned.npz"
-            cleaned = paths.run_dir(record_id, run_id) / str(cleaned_name)
-            if entry.get("cleaned_sha256") != sums.of(cleaned):
-                problems.append(
-                    Problem(
-                        where,
-                        f"cleaned data signed off here no longer match: {paths.relative(cleaned)} was changed or "
-                        "replaced",
-                        record=record_id,
-                        line=entry.line,
-                        file=paths.relative(cleaned),
-                    )
-                )
+        if entry.event == "add":
+            added.add(entry.record)
+        problems.extend(_check_entry(paths, entry, known_records.get(entry.record), sums))
     for record_id in record_ids:
         if record_id in known_records and record_id not in added:
             problems.append(
@@ -187,95 +123,126 @@ def verify_queue(queue, rebuild_index: bool = True) -> list[Problem]:
                     record=record_id,
                 )
             )
-
     if rebuild_index:
         problems.extend(_check_index(queue))
     return problems
 
 
-def _check_record(paths, record_id: str, sums: _Sums, known: dict) -> list[Problem]:
+def _log_problems(contents, head, line_faults) -> list[Problem]:
+    """The hash chain's problems, then lines not exactly as written (unless their hash already failed)."""
+    problems = [
+        Problem(_line_where(line), message, record=record, line=line, file=LOG_NAME)
+        for line, record, message in log_mod.chain_problems(contents, head)
+    ]
+    bad_hash_lines = {p.line for p in problems if p.line is not None}
+    problems += [
+        Problem(_line_where(line), message, line=line, file=LOG_NAME)
+        for line, message in line_faults
+        if line not in bad_hash_lines
+    ]
+    return problems
+
+
+def _settings_problems(queue) -> list[Problem]:
+    """Unusable cleaning settings or flag limits in the queue settings (reported, never fatal)."""
     problems = []
+    for check in (queue.settings.cleaning_settings, queue.settings.limits):
+        try:
+            check()
+        except Exception as exc:  # reported like every other problem, never fatal
+            message = exc.one_line() if hasattr(exc, "one_line") else str(exc)[:160]
+            problems.append(_file_problem(queue.paths, queue.paths.settings, f"unusable queue settings: {message}"))
+    return problems
+
+
+def _check_entry(paths, entry, meta: dict | None, sums: _Sums) -> list[Problem]:
+    """An ``add`` or ``decision`` entry against the files: its record (``meta``, None when missing) and run
+    exist, and the checksums it recorded still match the files."""
+    record_id, where = entry.record, _line_where(entry.line)
+    if meta is None:
+        message = "names a record that is not in the queue (its folder is missing)"
+        return [Problem(where, message, record=record_id, line=entry.line)]
+    problems = []
+    original = original_path(paths, record_id, meta)
+    if entry.get("original_sha256") != sums.of(original):
+        problems.append(
+            Problem(
+                where,
+                f"original checksum in the entry does not match {paths.relative(original)}",
+                record=record_id,
+                line=entry.line,
+                file=paths.relative(original),
+            )
+        )
+    if entry.event != "decision":
+        return problems
+    run_id = entry.run
+    if not isinstance(run_id, str) or run_id not in list_runs(paths, record_id):
+        message = f"signs off run {str(run_id)[:20]!r}, which does not exist"
+        return problems + [Problem(where, message, record=record_id, line=entry.line)]
+    cleaned = paths.run_dir(record_id, run_id) / str(entry.get("cleaned_file") or "cleaned.npz")
+    if entry.get("cleaned_sha256") != sums.of(cleaned):
+        problems.append(
+            Problem(
+                where,
+                f"cleaned data signed off here no longer match: {paths.relative(cleaned)} was changed or replaced",
+                record=record_id,
+                line=entry.line,
+                file=paths.relative(cleaned),
+            )
+        )
+    return problems
+
+
+def _check_record(paths, record_id: str, sums: _Sums, known: dict) -> list[Problem]:
+    """A record folder: its metadata, its original and every run (``known`` gets the metadata read)."""
     try:
         meta = read_meta(paths, record_id)
         original = original_path(paths, record_id, meta)
     except Exception as exc:
-        return [
-            Problem(
-                paths.relative(paths.record_meta(record_id)),
-                f"unreadable record metadata ({str(exc)[:80]})",
-                record=record_id,
-                file=paths.relative(paths.record_meta(record_id)),
-            )
-        ]
+        message = f"unreadable record metadata ({str(exc)[:80]})"
+        return [_file_problem(paths, paths.record_meta(record_id), message, record_id)]
     known[record_id] = meta
+    problems = []
     actual = sums.of(original)
     if actual is None:
-        problems.append(
-            Problem(
-                paths.relative(original), "original file is missing", record=record_id, file=paths.relative(original)
-            )
-        )
+        problems.append(_file_problem(paths, original, "original file is missing", record_id))
     elif actual != meta.get("original_sha256"):
         problems.append(
-            Problem(
-                paths.relative(original),
-                "original file does not match its checksum in record.json",
-                record=record_id,
-                file=paths.relative(original),
-            )
+            _file_problem(paths, original, "original file does not match its checksum in record.json", record_id)
         )
     for run_id in list_runs(paths, record_id):
-        folder = paths.run_dir(record_id, run_id)
-        try:
-            run = read_run_meta(paths, record_id, run_id)
-        except Exception as exc:
-            problems.append(
-                Problem(
-                    paths.relative(folder / RUN_META),
-                    f"unreadable run metadata ({str(exc)[:80]})",
-                    record=record_id,
-                    file=paths.relative(folder / RUN_META),
-                )
-            )
+        problems.extend(_check_run(paths, record_id, run_id, sums))
+    return problems
+
+
+def _check_run(paths, record_id: str, run_id: str, sums: _Sums) -> list[Problem]:
+    """A run folder: ``run.json`` readable, every file it lists present and matching, none unlisted, the digest."""
+    folder = paths.run_dir(record_id, run_id)
+    try:
+        run = read_run_meta(paths, record_id, run_id)
+    except Exception as exc:
+        return [_file_problem(paths, folder / RUN_META, f"unreadable run metadata ({str(exc)[:80]})", record_id)]
+    problems = []
+    stored_files = run.get("files")
+    files = stored_files if isinstance(stored_files, dict) else {}
+    for name, expected in sorted(files.items()):
+        target = folder / str(name)
+        if "/" in str(name) or "\\" in str(name):
+            message = f"lists a file outside the run folder: {str(name)[:60]!r}"
+            problems.append(Problem(paths.relative(folder / RUN_META), message, record=record_id))
             continue
-        stored_files = run.get("files")
-        files = stored_files if isinstance(stored_files, dict) else {}
-        for name, expected in sorted(files.items()):
-            target = folder / str(name)
-            if "/" in str(name) or "\\" in str(name):
-                problems.append(
-                    Problem(
-                        paths.relative(folder / RUN_META),
-                        f"lists a file outside the run folder: {str(name)[:60]!r}",
-                        record=record_id,
-                    )
-                )
-                continue
-            got = sums.of(target)
-            if got is None:
-                problems.append(
-                    Problem(paths.relative(target), "file is missing", record=record_id, file=paths.relative(target))
-                )
-            elif got != expected:
-                problems.append(
-                    Problem(
-                        paths.relative(target),
-                        "file does not match its checksum in run.json (changed or replaced)",
-                        record=record_id,
-                        file=paths.relative(target),
-                    )
-                )
-        for name in sorted(os.listdir(folder)):
-            if name != RUN_META and name not in files:
-                problems.append(
-                    Problem(
-                        paths.relative(folder / name),
-                        "file not listed in run.json (added afterwards)",
-                        record=record_id,
-                        file=paths.relative(folder / name),
-                    )
-                )
-        problems.extend(_check_digest(paths, record_id, run_id, run))
+        got = sums.of(target)
+        if got is None:
+            problems.append(_file_problem(paths, target, "file is missing", record_id))
+        elif got != expected:
+            message = "file does not match its checksum in run.json (changed or replaced)"
+            problems.append(_file_problem(paths, target, message, record_id))
+    for name in sorted(os.listdir(folder)):
+        if name != RUN_META and name not in files:
+            message = "file not listed in run.json (added afterwards)"
+            problems.append(_file_problem(paths, folder / name, message, record_id))
+    problems.extend(_check_digest(paths, record_id, run_id, run))
     return problems
 
 
