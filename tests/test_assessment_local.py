@@ -22,6 +22,7 @@ from tracevet.assessment.beats import build_windows
 from tracevet.assessment.limits import default_limits
 from tracevet.assessment.shape_measures import measure_templates
 from tracevet.assessment.stretches import (
+    cut_end_beats,
     MIN_STRETCH_BEATS,
     STRETCH_BEATS,
     geometry,
@@ -104,6 +105,59 @@ def test_fast_wander_of_the_real_record_removed_by_the_engine_is_no_excursion():
     shift = 0.3 * np.clip(t - 30.0, 0, 1) * np.clip(51.0 - t, 0, 1)
     flag = _flag(_assess_mv(piece, cleaned + shift), "baseline-excursion")
     assert flag is not None and any(s <= 51.0 and e >= 30.0 for s, e in flag.where)
+
+
+@pytest.mark.parametrize("at_end", [True, False])
+def test_excursion_on_the_beat_cut_by_an_end_is_flagged_there(at_end):
+    # An exponential of 0.3 mV (time constant 0.7 s) added at one end of a
+    # McSharry et al. (2003) model ECG whose last (first) beat's window is cut
+    # by that end: most of the excursion lies on that beat, read on its two
+    # anchors inside the trace. Limit 0.1 mV: IEC 60601-2-25 / AAMI EC11
+    # impulse test, baseline displacement (from memory).
+    fs = 500.0
+    rec = syn.synthetic_ecg(30.3, fs, heart_rate_bpm=60.0, hrv_std_bpm=0.0, seed=7)
+    x = rec.signal if at_end else rec.signal[::-1].copy()
+    duration = x.size / fs
+    peaks = rec.r_peaks if at_end else x.size - 1 - rec.r_peaks[::-1]
+    if at_end:
+        assert duration - peaks[-1] / fs < 0.45  # the last beat's window is cut by the end
+    t = np.arange(x.size) / fs
+    bump = 0.3 * np.exp(-((t[-1] - t) if at_end else t) / 0.7)
+    flag = _flag(_assess_mv(x, x - bump, fs), "baseline-excursion")
+    assert flag is not None
+    if at_end:
+        assert flag.where[-1][1] > duration - 0.5 and flag.where[0][0] > duration - 3.0
+    else:
+        assert flag.where[0][0] < 0.5 and flag.where[-1][1] < 3.0
+    assert _flag(_assess_mv(x, x.copy(), fs), "baseline-excursion") is None
+
+
+def test_cut_beat_reading_accepts_removing_none_part_or_all_of_the_original_change():
+    # A cleaning that leaves, halves or removes a 0.4 mV step of the original's
+    # level at its last (cut) beat moves nothing: no excess. One that adds a
+    # 0.3 mV step there does (the interval rule of cut_end_beats; common practice).
+    fs = 500.0
+    rec = syn.synthetic_ecg(30.3, fs, heart_rate_bpm=60.0, hrv_std_bpm=0.0, seed=7)
+    truth = rec.signal
+    n = truth.size
+    pre, post = int(0.3 * fs), int(0.45 * fs)
+    iso = slice(int(0.2 * fs), int(0.22 * fs))
+    centres = rec.r_peaks.astype(np.int64)
+    labels = np.zeros(centres.size, dtype=np.int64)
+    whole = (centres >= pre) & (centres < n - post)
+    assert not whole[-1]
+    step = np.zeros(n)
+    step[int(centres[-1]) - pre :] = 0.4
+    original = truth + step
+    edge = int(0.03 * fs)
+    for kept in (1.0, 0.5, 0.0):
+        cleaned = truth + kept * step
+        ((_, excess),) = [r for r in cut_end_beats(original, cleaned, centres, labels, whole, pre, post, iso, edge)
+                          if r[0] == centres[-1]]
+        assert excess < 1e-9
+    ((_, excess),) = [r for r in cut_end_beats(truth, truth + 0.75 * step, centres, labels, whole, pre, post, iso, edge)
+                      if r[0] == centres[-1]]
+    assert excess == pytest.approx(0.3, abs=1e-6)
 
 
 @pytest.fixture(scope="module")

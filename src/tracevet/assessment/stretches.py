@@ -568,11 +568,12 @@ def baseline_excursions(
         after the noise allowance, are returned).
     """
     n = original.size
+    edge = max(1, int(round(0.03 * fs)))
     whole = (centres >= pre) & (centres < n - post)  # beats with their whole window (anchors) in the trace
+    cut = cut_end_beats(original, cleaned, centres, labels, whole, pre, post, iso, edge)
     centres, labels = centres[whole], labels[whole]
     if centres.size < 2 or warn is None:
         return Excursions(None, [], 0, 0, 0.0)
-    edge = max(1, int(round(0.03 * fs)))
     lx = anchor_levels(original, centres, pre, post, iso, edge)
     ly = anchor_levels(cleaned, centres, pre, post, iso, edge)
     times = centres / fs
@@ -580,7 +581,7 @@ def baseline_excursions(
     removed = lx - ly
     widths = tuple(max(1, int(round(w * fs))) for w in LEVEL_SCALES_S)
     slow = trace_means(original, np.round(times * fs).astype(np.int64), widths)
-    excess = unexplained_level(lx, removed, slow, group) * to_limit_unit
+    excess = np.minimum(unexplained_level(lx, removed, slow, group), off_cleaned_level(ly, group)) * to_limit_unit
     n_beats = centres.size
     sigma = robust_sigma(excess[:n_beats])
     # Beyond what the interior shows: the residual's own robust spread over
@@ -598,9 +599,78 @@ def baseline_excursions(
     end_hit = excess[end_beats] > max(warn, allow_end)
     beyond[end_beats[end_hit]] = True
     values.append(float(np.max(excess[end_beats])))
-    spans = [((int(c) - pre) / fs, (int(c) + post) / fs) for c in centres[beyond]]
+    flagged_centres = [int(c) for c in centres[beyond]]
+    for c, value in cut:
+        value *= to_limit_unit
+        values.append(value)
+        if value > max(warn, allow_end):
+            flagged_centres.append(c)
+    spans = [((c - pre) / fs, (c + post) / fs) for c in sorted(flagged_centres)]
     spans = [(max(0.0, a), min(n / fs, b)) for a, b in spans]
-    return Excursions(max(values), spans, int(np.sum(beyond)), int(n_beats), max(allow_stretch, 0.0))
+    affected = len(flagged_centres)
+    return Excursions(max(values), spans, affected, int(n_beats + len(cut)), max(allow_stretch, 0.0))
+
+
+# Whole beats of the dominant group next to a beat cut by an end that give its reference levels.
+CUT_NEIGHBOURS = 4
+
+
+def cut_end_beats(
+    original: np.ndarray,
+    cleaned: np.ndarray,
+    centres: np.ndarray,
+    labels: np.ndarray,
+    whole: np.ndarray,
+    pre: int,
+    post: int,
+    iso: slice,
+    edge: int,
+) -> list[tuple[int, float]]:
+    """Excursions at the beats cut by the start or end of the trace: ``[(centre, excess), ...]`` (record units).
+
+    The last beat before an end sits where an excursion added at that end is
+    largest, but its window is cut: it is read on the two anchors inside the
+    trace (PQ junction and first 30 ms before an end; PQ junction and last
+    30 ms after a start), and so are its :data:`CUT_NEIGHBOURS` nearest whole
+    beats of the dominant group, so that a wave under one anchor biases all
+    alike. With ``dr`` the change of the removed level (original minus
+    cleaned) from the neighbours' median to the cut beat and ``do`` that of
+    the original's level, a cleaning that removes none, part or all of the
+    original's change leaves ``dr`` between 0 and ``do``; the excess is the
+    distance of ``dr`` from that interval. Beats whose PQ anchor is outside
+    the trace are not read.
+    """
+    out: list[tuple[int, float]] = []
+    m = pre + post + 1
+    spans = {"first": (0, edge), "iso": (iso.start, iso.stop), "last": (m - edge, m)}
+    inside = np.flatnonzero(whole)
+    if inside.size < 2:
+        return out
+    for index, anchors, side in ((inside[0] - 1, ("iso", "last"), 1), (inside[-1] + 1, ("first", "iso"), -1)):
+        if index < 0 or index >= centres.size:
+            continue
+        c = int(centres[index])
+        if any(c - pre + spans[a][0] < 0 or c - pre + spans[a][1] > original.size for a in anchors):
+            continue
+        pool = inside if side == 1 else inside[::-1]
+        pool = pool[labels[pool] == 0] if np.any(labels[pool] == 0) else pool
+        neighbours = centres[pool[:CUT_NEIGHBOURS]].astype(np.int64)
+        if neighbours.size < 2:
+            continue
+
+        def level(signal, at, anchors=anchors):
+            at = np.atleast_1d(np.asarray(at, dtype=np.int64))
+            parts = [signal[at[:, None] - pre + np.arange(*spans[a])[None, :]].astype(np.float64).mean(axis=1)
+                     for a in anchors]
+            return np.mean(parts, axis=0)
+
+        ox, oy = level(original, c)[0], level(cleaned, c)[0]
+        nx, ny = level(original, neighbours), level(cleaned, neighbours)
+        dr = (ox - oy) - float(np.median(nx - ny))
+        do = ox - float(np.median(nx))
+        low, high = min(0.0, do), max(0.0, do)
+        out.append((c, float(max(low - dr, dr - high, 0.0))))
+    return out
 
 
 # Robust s.d. of the unexplained level over the record an excursion must exceed (common practice).
@@ -640,6 +710,21 @@ def trace_means(signal: np.ndarray, at: np.ndarray, widths: tuple, chunk: int = 
     values[order[first:]] = total
     sums = values[points.size // 2 :].reshape(hi.shape) - values[: points.size // 2].reshape(lo.shape)
     return sums / np.maximum(hi - lo, 1)
+
+
+def off_cleaned_level(ly: np.ndarray, group: np.ndarray) -> np.ndarray:
+    """How far each beat's cleaned level lies from the usual level of its group in the cleaned trace (record units).
+
+    ``|Ly - median(Ly of the group)|``. An excursion is only one where the
+    cleaned beats sit off the cleaned record's own level: where the cleaned
+    trace is level, nothing was moved, whatever the fit of the removed part
+    (:func:`unexplained_level`) makes of the original's wander near an end.
+    """
+    out = np.empty(ly.size, dtype=np.float64)
+    for value in np.unique(group):
+        members = group == value
+        out[members] = np.abs(ly[members] - np.median(ly[members]))
+    return out
 
 
 def _first_inliers(lx: np.ndarray, target: np.ndarray, group: np.ndarray) -> np.ndarray:
