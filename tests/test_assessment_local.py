@@ -85,6 +85,27 @@ def test_level_shift_for_twenty_seconds_is_flagged_there(excerpt):
     assert all(s >= 45.0 and e <= 76.0 for s, e in flag.where)
 
 
+def test_fast_wander_of_the_real_record_removed_by_the_engine_is_no_excursion():
+    # Record 208 (MIT-BIH, Moody & Mark 2001; tests/data/README.md) swings by
+    # about 0.8 mV within 4 s between 242 and 248 s. The default cleaning
+    # removes that swing: the removed level follows the original's own level,
+    # so nothing was added and no baseline-excursion may be raised (it was,
+    # at 0.19 mV, before the robust fit started from a line in the original's level).
+    from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, clean
+
+    with np.load(DATA) as data:
+        x = (data["ecg"].astype(np.float64) - 1024.0) / 200.0
+    piece = x[int(228 * 360) : int(288 * 360)]
+    rec = Recording(piece, 360.0, ("MLII",), units="mV", kind="ecg")
+    cleaned = clean(rec, apply_overrides(DEFAULT_SETTINGS, ["mains=60"])).samples[:, 0].astype(np.float64)
+    assert _flag(_assess_mv(piece, cleaned), "baseline-excursion") is None
+    # The same cleaning with a 0.3 mV shift added over 20 s of it is still flagged there.
+    t = np.arange(piece.size) / 360.0
+    shift = 0.3 * np.clip(t - 30.0, 0, 1) * np.clip(51.0 - t, 0, 1)
+    flag = _flag(_assess_mv(piece, cleaned + shift), "baseline-excursion")
+    assert flag is not None and any(s <= 51.0 and e >= 30.0 for s, e in flag.where)
+
+
 @pytest.fixture(scope="module")
 def model():
     # Constant heart rate, no variability: every beat of the model is the same.

@@ -642,6 +642,36 @@ def trace_means(signal: np.ndarray, at: np.ndarray, widths: tuple, chunk: int = 
     return sums / np.maximum(hi - lo, 1)
 
 
+def _first_inliers(lx: np.ndarray, target: np.ndarray, group: np.ndarray) -> np.ndarray:
+    """Beats whose removed level a straight line in the original's level explains (trimmed least squares).
+
+    The start of :func:`unexplained_level`'s robust fit. Few parameters
+    (slope, constant, second-group constant): an added level shift or swoop
+    cannot be fitted away and stays out, while beats on the original's own
+    wander, however large or fast, stay in. (Trimming on the removed level
+    itself dropped exactly the beats where a faithful cleaning removed the
+    most wander, and the fit, held to the range of the beats kept, could then
+    never explain them: fast swings of record 208 were flagged.)
+    """
+    columns = [np.ones_like(lx), lx - np.median(lx)]
+    if np.any(group > 0):
+        columns.append(group)
+    design = np.stack(columns, axis=1)
+    keep = np.ones(target.size, dtype=bool)
+    for _ in range(4):
+        if keep.sum() <= 8:
+            return np.ones(target.size, dtype=bool)
+        coef, *_ = np.linalg.lstsq(design[keep], target[keep], rcond=None)
+        residual = target - design @ coef
+        centre = float(np.median(residual[keep]))
+        spread = MAD_TO_SD * float(np.median(np.abs(residual[keep] - centre)))
+        new_keep = np.abs(residual - centre) <= 2.5 * spread if spread > 0 else keep
+        if np.array_equal(new_keep, keep):
+            break
+        keep = new_keep
+    return keep if keep.sum() > 8 else np.ones(target.size, dtype=bool)
+
+
 def unexplained_level(lx: np.ndarray, removed: np.ndarray, slow: np.ndarray, group: np.ndarray) -> np.ndarray:
     """The part of the removed level (original minus cleaned) that no slow version of the original explains.
 
@@ -651,9 +681,10 @@ def unexplained_level(lx: np.ndarray, removed: np.ndarray, slow: np.ndarray, gro
     itself and the moving means of the original trace (``slow``, one column
     per time scale, beats included: a high-pass also takes out the beats'
     own mean) plus a constant and a constant for the second morphology group,
-    weights >= 0 (non-negative least squares), refitted without the beats
-    whose residual is beyond 2.5 robust s.d. until the set settles (robust
-    regression by trimming, common practice). A level shift or a
+    weights >= 0 (non-negative least squares), first on the beats a straight
+    line in the original's level explains (:func:`_first_inliers`), then
+    refitted without the beats whose residual is beyond 2.5 robust s.d.
+    until the set settles (robust regression by trimming, common practice). A level shift or a
     start-up swoop the cleaning added is not in the original and stays in
     the residual. Returned: the residual's size less :data:`FIT_TOLERANCE`
     times the removed level's own size (record units, >= 0).
@@ -673,11 +704,8 @@ def unexplained_level(lx: np.ndarray, removed: np.ndarray, slow: np.ndarray, gro
     target = removed
     scale = np.maximum(np.abs(design).max(axis=0), 1e-300)
     design = design / scale
-    keep = np.ones(target.size, dtype=bool)
+    keep = _first_inliers(lx, target, group)
     residual = target - np.median(target)
-    spread0 = MAD_TO_SD * float(np.median(np.abs(residual)))
-    if spread0 > 0:
-        keep = np.abs(residual) <= 2.5 * spread0 if np.sum(np.abs(residual) <= 2.5 * spread0) > 8 else keep
     for _ in range(6):
         if keep.sum() <= 8:
             break
