@@ -24,6 +24,16 @@ def write_small_recording(path, seconds: float = 2.0, fs: float = 250.0, seed: i
     return path
 
 
+def write_noisy_ecg(path, seed: int, seconds: float = 8.0, fs: float = 250.0):
+    """Write a synthetic ECG (McSharry et al. 2003 model) with muscle noise, in mV, and return its path."""
+    from tracevet.synthetic import muscle_noise, synthetic_ecg
+
+    n = int(seconds * fs)
+    signal = synthetic_ecg(seconds, fs, seed=seed).signal + muscle_noise(n, fs, seed=100 + seed)
+    write_recording(Recording(signal.astype(np.float32), fs, ("chest",), "mV", "ecg"), path)
+    return path
+
+
 class StandInAssessment:
     """Duck-typed assessment used to build runs without the assessment layer.
 

@@ -14,27 +14,19 @@ import sys
 
 import numpy as np
 import pytest
+from queue_helpers import write_noisy_ecg
 
 from tracevet.cli.main import main
 from tracevet.cleaning import DEFAULT_SETTINGS
 from tracevet.errors import InputError
-from tracevet.recording import Recording, write_recording
-from tracevet.synthetic import muscle_noise, synthetic_ecg
 from tracevet.workqueue import Queue
 from tracevet.workqueue.batch import clean_waiting
 from tracevet.workqueue.cluster import ClusterSettings, choose_cluster, parse_address
 
 
-def _ecg_file(path, seed, seconds=8.0, fs=250.0):
-    n = int(seconds * fs)
-    signal = synthetic_ecg(seconds, fs, seed=seed).signal + muscle_noise(n, fs, seed=100 + seed)
-    write_recording(Recording(signal.astype(np.float32), fs, ("chest",), "mV", "ecg"), path)
-    return path
-
-
 def _queue(tmp_path, name, count=4):
     queue = Queue.init(tmp_path / name)
-    files = [_ecg_file(tmp_path / f"{name}-in" / f"dive{i}.npz", i) for i in range(count)] if count else []
+    files = [write_noisy_ecg(tmp_path / f"{name}-in" / f"dive{i}.npz", i) for i in range(count)] if count else []
     ids = queue.add_files(files, added_by="mira") if files else []
     return queue, ids
 
@@ -123,7 +115,7 @@ def test_an_unreachable_scheduler_named_in_the_queue_settings_is_one_line_and_no
     settings = replace(new_settings(), cluster={"address": f"tcp://127.0.0.1:{port}", "connect_timeout": 1})
     queue = Queue.init(tmp_path / "q", settings)
     assert Queue.open(queue.root).settings.cluster["connect_timeout"] == 1  # the setting survives queue.yaml
-    queue.add_files([_ecg_file(tmp_path / "q-in" / "dive.npz", 0)], added_by="mira")
+    queue.add_files([write_noisy_ecg(tmp_path / "q-in" / "dive.npz", 0)], added_by="mira")
     before = _state_of(queue.root)
     assert main(["clean", str(queue.root), "--quiet"]) == 2
     err = capsys.readouterr().err

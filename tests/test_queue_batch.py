@@ -5,29 +5,21 @@ from __future__ import annotations
 import os
 import socket
 
-import numpy as np
 import pytest
+from queue_helpers import write_noisy_ecg
 
 from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings, clean
 from tracevet.errors import InputError
-from tracevet.recording import Recording, read_recording, write_recording
-from tracevet.synthetic import muscle_noise, synthetic_ecg
+from tracevet.recording import read_recording, write_recording
 from tracevet.workqueue import Queue
 from tracevet.workqueue.batch import clean_waiting
 from tracevet.workqueue.locking import try_hold
 
 
-def _ecg_file(path, seed, seconds=8.0, fs=250.0):
-    n = int(seconds * fs)
-    signal = synthetic_ecg(seconds, fs, seed=seed).signal + muscle_noise(n, fs, seed=100 + seed)
-    write_recording(Recording(signal.astype(np.float32), fs, ("chest",), "mV", "ecg"), path)
-    return path
-
-
 @pytest.fixture
 def queue_of_four(tmp_path):
     queue = Queue.init(tmp_path / "q")
-    ids = queue.add_files([_ecg_file(tmp_path / f"dive{i}.npz", i) for i in range(4)], added_by="mira")
+    ids = queue.add_files([write_noisy_ecg(tmp_path / f"dive{i}.npz", i) for i in range(4)], added_by="mira")
     return queue, ids
 
 
@@ -129,7 +121,7 @@ def test_add_run_puts_a_new_run_beside_the_old_and_cancelling_leaves_nothing(que
 
 def test_a_record_cleaned_elsewhere_is_reviewed_and_can_be_re_run(tmp_path):
     queue = Queue.init(tmp_path / "q")
-    raw = _ecg_file(tmp_path / "dive7.npz", 7)
+    raw = write_noisy_ecg(tmp_path / "dive7.npz", 7)
     elsewhere = tmp_path / "other-pipeline.npz"
     write_recording(clean(read_recording(raw), DEFAULT_SETTINGS.from_dict({"transform": "dwt"})), elsewhere)
     record_id = queue.add_pair(raw, elsewhere, added_by="mira")
@@ -150,8 +142,8 @@ def test_a_record_cleaned_elsewhere_is_reviewed_and_can_be_re_run(tmp_path):
 
 def test_a_pair_that_does_not_match_is_refused(tmp_path):
     queue = Queue.init(tmp_path / "q")
-    raw = _ecg_file(tmp_path / "a.npz", 1)
-    shorter = _ecg_file(tmp_path / "b.npz", 2, seconds=6.0)
+    raw = write_noisy_ecg(tmp_path / "a.npz", 1)
+    shorter = write_noisy_ecg(tmp_path / "b.npz", 2, seconds=6.0)
     with pytest.raises(InputError, match="samples"):
         queue.add_pair(raw, shorter, added_by="mira")
     assert queue.records() == [] and os.listdir(queue.root / ".work") == []
@@ -160,14 +152,14 @@ def test_a_pair_that_does_not_match_is_refused(tmp_path):
 def test_clean_and_add_pair_commands(run_cli, tmp_path):
     folder = tmp_path / "q"
     run_cli("init", folder)
-    files = [_ecg_file(tmp_path / f"d{i}.npz", i) for i in range(3)]
+    files = [write_noisy_ecg(tmp_path / f"d{i}.npz", i) for i in range(3)]
     assert run_cli("add", folder, *files, "--reviewer", "mira")[0] == 0
     code, out, err = run_cli("clean", folder)
     assert code == 0 and "cleaned 3 record(s)" in out
     assert "cleaning [" in err and "3/3" in err and "Traceback" not in err
     code, out, err = run_cli("clean", folder)
     assert code == 0 and "nothing waiting" in out
-    raw, other = _ecg_file(tmp_path / "p.npz", 9), tmp_path / "p-clean.npz"
+    raw, other = write_noisy_ecg(tmp_path / "p.npz", 9), tmp_path / "p-clean.npz"
     write_recording(clean(read_recording(raw), DEFAULT_SETTINGS), other)
     code, out, err = run_cli("add", folder, "--pair", raw, other, "--reviewer", "mira")
     assert code == 0 and "cleaned elsewhere" in out

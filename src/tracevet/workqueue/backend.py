@@ -23,7 +23,11 @@ write a module-level function ``work(task) -> result`` whose task and result
 pickle (plain data, numpy arrays, dataclasses), build an iterator of tasks,
 and call ``run_tasks(backend, work, tasks, on_result, max_in_flight)`` with
 the backend :func:`tracevet.workqueue.batch.open_backend` gives; check and
-store each result in ``on_result`` (see ``batch.clean_waiting``).
+store each result in ``on_result``. :mod:`tracevet.workqueue.batch` holds
+the pieces both kinds of work use (``batch_lock``, ``BatchProgress``,
+``record_task``, ``provenance_problem``, ``shape_problem``; results derive
+from :class:`tracevet.workqueue.tasks.WorkerResult`): see
+``batch.clean_waiting`` and ``suggested.suggest_flagged``.
 """
 
 from __future__ import annotations

@@ -183,18 +183,27 @@ def discard_staged(staged: StagedRecord) -> None:
     _remove_tree(staged.folder)
 
 
-def read_meta(paths: QueuePaths, record_id: str) -> dict:
-    """``record.json`` of a record; InputError if the record does not exist or is damaged."""
-    path = paths.record_meta(record_id)
+def read_metadata(paths: QueuePaths, path: Path, what: str, missing: InputError) -> dict:
+    """A metadata file of the queue holding one JSON object (``what``: ``record``, ``run``).
+
+    Raises ``missing`` when the file does not exist, and an InputError naming
+    the file when it cannot be read or holds something else.
+    """
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
-        raise InputError(record_id, "no such record in this queue (see 'tracevet status')") from None
+        raise missing from None
     except (OSError, ValueError) as exc:
-        raise InputError(paths.relative(path), f"damaged record metadata ({str(exc)[:80]})") from None
+        raise InputError(paths.relative(path), f"damaged {what} metadata ({str(exc)[:80]})") from None
     if not isinstance(data, dict):
-        raise InputError(paths.relative(path), "damaged record metadata (not a JSON object)")
+        raise InputError(paths.relative(path), f"damaged {what} metadata (not a JSON object)")
     return data
+
+
+def read_meta(paths: QueuePaths, record_id: str) -> dict:
+    """``record.json`` of a record; InputError if the record does not exist or is damaged."""
+    missing = InputError(record_id, "no such record in this queue (see 'tracevet status')")
+    return read_metadata(paths, paths.record_meta(record_id), "record", missing)
 
 
 def list_record_ids(paths: QueuePaths) -> list[str]:

@@ -35,7 +35,7 @@ from tracevet.workqueue.checksums import sha256_file
 from tracevet.workqueue.ids import check_record_id, is_run_id, run_id_for, run_number
 from tracevet.workqueue.layout import RUN_META, RUN_SETTINGS, QueuePaths
 from tracevet.workqueue.log import jsonable
-from tracevet.workqueue.records import READ_ONLY, copy_verified, write_durable
+from tracevet.workqueue.records import READ_ONLY, copy_verified, read_metadata, write_durable
 from tracevet.workqueue.settings import utc_now_text
 
 # libyaml's safe loader when available (same safety, about ten times faster)
@@ -243,16 +243,8 @@ def read_run_meta(paths: QueuePaths, record_id: str, run_id: str) -> dict:
     check_record_id(record_id)
     if not is_run_id(run_id):
         raise InputError("run", f"{str(run_id)[:40]!r} is not a run id (like run-001)")
-    path = paths.run_dir(record_id, run_id) / RUN_META
-    try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"{record_id}/{run_id}", "no such run (see 'tracevet status')") from None
-    except (OSError, ValueError) as exc:
-        raise InputError(paths.relative(path), f"damaged run metadata ({str(exc)[:80]})") from None
-    if not isinstance(data, dict):
-        raise InputError(paths.relative(path), "damaged run metadata (not a JSON object)")
-    return data
+    missing = InputError(f"{record_id}/{run_id}", "no such run (see 'tracevet status')")
+    return read_metadata(paths, paths.run_dir(record_id, run_id) / RUN_META, "run", missing)
 
 
 def read_run_settings(paths: QueuePaths, record_id: str, run_id: str) -> dict | None:
