@@ -613,6 +613,9 @@ def baseline_excursions(
 
 # Whole beats of the dominant group next to a beat cut by an end that give its reference levels.
 CUT_NEIGHBOURS = 4
+# Whole beats, beyond the neighbours, read the same way as a cut beat: the cut beat must exceed
+# the largest of their readings (what the record's own wander does to this reading).
+CUT_REFERENCE_BEATS = 12
 
 
 def cut_end_beats(
@@ -654,23 +657,38 @@ def cut_end_beats(
             continue
         pool = inside if side == 1 else inside[::-1]
         pool = pool[labels[pool] == 0] if np.any(labels[pool] == 0) else pool
-        neighbours = centres[pool[:CUT_NEIGHBOURS]].astype(np.int64)
-        if neighbours.size < 2:
+        pool = centres[pool[: 2 * CUT_NEIGHBOURS + CUT_REFERENCE_BEATS]].astype(np.int64)
+        if pool.size < CUT_NEIGHBOURS + 1:
             continue
 
         def level(signal, at, anchors=anchors):
-            at = np.atleast_1d(np.asarray(at, dtype=np.int64))
             parts = [signal[at[:, None] - pre + np.arange(*spans[a])[None, :]].astype(np.float64).mean(axis=1)
                      for a in anchors]
             return np.mean(parts, axis=0)
 
-        ox, oy = level(original, c)[0], level(cleaned, c)[0]
-        nx, ny = level(original, neighbours), level(cleaned, neighbours)
-        dr = (ox - oy) - float(np.median(nx - ny))
-        do = ox - float(np.median(nx))
-        low, high = min(0.0, do), max(0.0, do)
-        out.append((c, float(max(low - dr, dr - high, 0.0))))
+        lx = level(original, np.concatenate([[c], pool]))
+        ly = level(cleaned, np.concatenate([[c], pool]))
+        # Position 0 is the cut beat; the reference beats start CUT_NEIGHBOURS whole beats inward,
+        # out of reach of an excursion that decays within a few beats.
+        targets = np.concatenate([[0], np.arange(CUT_NEIGHBOURS + 1, lx.size - CUT_NEIGHBOURS)])
+        excess = _outside_change(lx, ly, targets)
+        reference = float(np.max(excess[1:])) if excess.size > 1 else 0.0
+        out.append((c, max(0.0, float(excess[0]) - reference)))
     return out
+
+
+def _outside_change(lx: np.ndarray, ly: np.ndarray, targets: np.ndarray) -> np.ndarray:
+    """For each target position, the distance of its removed-level change from [0, original change].
+
+    Changes are taken from the median of the next :data:`CUT_NEIGHBOURS`
+    positions (the beats inward of the target); see :func:`cut_end_beats`.
+    """
+    nb = targets[:, None] + np.arange(1, CUT_NEIGHBOURS + 1)[None, :]
+    removed = lx - ly
+    dr = removed[targets] - np.median(removed[nb], axis=1)
+    do = lx[targets] - np.median(lx[nb], axis=1)
+    low, high = np.minimum(0.0, do), np.maximum(0.0, do)
+    return np.maximum(np.maximum(low - dr, dr - high), 0.0)
 
 
 # Robust s.d. of the unexplained level over the record an excursion must exceed (common practice).
