@@ -14,12 +14,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from mitdb import excerpt_mv
 from tracevet.app.record_screen import RecordScreen
 from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings
 from tracevet.recording import Recording, write_recording
 from tracevet.workqueue import Queue
 
-DATA = Path(__file__).resolve().parent / "data"
 FS = 360.0  # MIT-BIH sampling rate (tests/data/README.md)
 EXCERPT = 7200  # 20 s at 360 Hz
 HOSTILE_FILE = "evil \x1b[31m[bold red]x.npz"
@@ -27,10 +27,8 @@ HOSTILE_CHANNEL = "ch\x1b[2J[blink]1[/blink]"
 
 
 def mitdb_mv() -> np.ndarray:
-    """The shipped MIT-BIH 208 excerpt in millivolts."""
-    # MIT-BIH 208 excerpt: (raw - 1024) / 200 gives millivolts (tests/data/README.md)
-    raw = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"].astype(np.float64)
-    return (raw - 1024.0) / 200.0
+    """The shipped MIT-BIH 208 excerpt in millivolts (tests/mitdb.py)."""
+    return excerpt_mv()
 
 
 def harsh_settings() -> CleaningSettings:

@@ -16,16 +16,15 @@ benchmarks/eval_fidelity.py (the full grid).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
 
+from mitdb import excerpt_mv
 from tracevet import synthetic as syn
 from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings, clean
 from tracevet.recording import Recording
 
-DATA = Path(__file__).resolve().parent / "data"
 
 
 @dataclass(frozen=True)
@@ -133,8 +132,7 @@ def mitdb_source(start_s: float, duration_s: float = 30.0) -> Source:
     """
     from scipy.signal import butter, filtfilt, find_peaks
 
-    with np.load(DATA / "mitdb-208-excerpt.npz") as data:
-        ecg = (data["ecg"].astype(np.float64) - 1024.0) / 200.0
+    ecg = excerpt_mv()
     fs = 360.0
     a, b = int(start_s * fs), int((start_s + duration_s) * fs)
     x = ecg[a:b]

@@ -9,13 +9,13 @@ measures the assessment alone.
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import signal as sps
 
 import fidelity_cases as fc
+from mitdb import excerpt_mv
 from tracevet import synthetic as syn
 from tracevet.assessment import assess
 from tracevet.assessment.beats import build_windows
@@ -31,7 +31,6 @@ from tracevet.assessment.stretches import (
 )
 from tracevet.recording import Recording
 
-DATA = Path(__file__).resolve().parent / "data" / "mitdb-208-excerpt.npz"
 
 
 def _flag(result, flag_id):
@@ -40,9 +39,7 @@ def _flag(result, flag_id):
 
 @pytest.fixture(scope="module")
 def excerpt():
-    with np.load(DATA) as data:
-        x = (data["ecg"].astype(np.float64) - 1024.0) / 200.0  # tests/data/README.md
-    return x[: int(120 * 360)]
+    return excerpt_mv(120.0)  # tests/mitdb.py
 
 
 def _assess_mv(x, y, fs=360.0, detector=None):
@@ -94,9 +91,7 @@ def test_fast_wander_of_the_real_record_removed_by_the_engine_is_no_excursion():
     # at 0.19 mV, before the robust fit started from a line in the original's level).
     from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, clean
 
-    with np.load(DATA) as data:
-        x = (data["ecg"].astype(np.float64) - 1024.0) / 200.0
-    piece = x[int(228 * 360) : int(288 * 360)]
+    piece = excerpt_mv(60.0, start_s=228.0)
     rec = Recording(piece, 360.0, ("MLII",), units="mV", kind="ecg")
     cleaned = clean(rec, apply_overrides(DEFAULT_SETTINGS, ["mains=60"])).samples[:, 0].astype(np.float64)
     assert _flag(_assess_mv(piece, cleaned), "baseline-excursion") is None

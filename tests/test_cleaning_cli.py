@@ -7,16 +7,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from mitdb import excerpt_mv
 from tracevet.cleaning import DEFAULT_SETTINGS, SETTING_CHOICES, SETTING_HELP, apply_overrides, clean
 from tracevet.recording import Recording, read_recording, write_recording
 
-DATA = Path(__file__).parent / "data"
 
 
 def _excerpt(seconds: float = 20.0) -> np.ndarray:
-    # MIT-BIH record 208 excerpt, mV = (adu - 1024) / 200 (tests/data/README.md).
-    adu = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"][: int(seconds * 360)]
-    return (adu.astype(np.float64) - 1024) / 200
+    # MIT-BIH record 208 excerpt in mV (tests/mitdb.py).
+    return excerpt_mv(seconds)
 
 
 @pytest.mark.parametrize("suffix", [".npy", ".csv", ".npz", ".edf"])

@@ -2,22 +2,20 @@
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 import pytest
 
+from mitdb import excerpt_mv
 from tracevet.cleaning import DEFAULT_SETTINGS, CleaningSettings, apply_overrides, clean, resolve_level
 from tracevet.errors import InputError, SettingsError
 from tracevet.recording import Recording
 
-DATA = Path(__file__).parent / "data"
 
 
 def _excerpt_mv() -> np.ndarray:
-    # MIT-BIH record 208 excerpt (tests/data/README.md): mV = (adu - 1024) / 200.
-    adu = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"]
-    return (adu.astype(np.float64) - 1024) / 200
+    # MIT-BIH record 208 excerpt in mV (tests/mitdb.py).
+    return excerpt_mv()
 
 
 def _noisy(n_repeat=1, dtype=np.float64, channels=1, seed=3):

@@ -2,16 +2,15 @@
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy.signal import find_peaks
 
+import mitdb
 from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, clean
 from tracevet.recording import Recording
 
-DATA = Path(__file__).parent / "data"
 FS = 360.0
 
 
@@ -20,8 +19,7 @@ def excerpt_mv() -> np.ndarray:
     # Source: tests/data/README.md (SciPy's scipy.misc.electrocardiogram data, MIT-BIH
     # record 208 lead MLII, 360 Hz): mV = (adu - 1024) / 200; SciPy docstring values
     # mean -0.16510875 mV, s.d. 0.5992473991177294 mV.
-    adu = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"]
-    mv = (adu.astype(np.float64) - 1024) / 200
+    mv = mitdb.excerpt_mv()
     assert mv.mean() == pytest.approx(-0.16510875, rel=1e-9)
     assert mv.std() == pytest.approx(0.5992473991177294, rel=1e-12)
     return mv

@@ -3,25 +3,23 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import signal
 
+from mitdb import excerpt_mv
 from tracevet.cleaning import DEFAULT_SETTINGS, apply_overrides, clean_with_report
 from tracevet.cleaning.filters import MAINS_BANDWIDTH_HZ, mains_sos, zero_phase
 from tracevet.cleaning.mains import MARGIN_DB, detect_mains
 from tracevet.recording import Recording, write_recording
 from tracevet.synthetic import mains_hum, muscle_noise, synthetic_ecg
 
-DATA = Path(__file__).parent / "data"
 
 
 def _excerpt(seconds: float = 60.0) -> np.ndarray:
-    # MIT-BIH record 208 excerpt, mV = (adu - 1024) / 200 (tests/data/README.md).
-    adu = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"][: int(seconds * 360)]
-    return (adu.astype(np.float64) - 1024) / 200
+    # MIT-BIH record 208 excerpt in mV (tests/mitdb.py).
+    return excerpt_mv(seconds)
 
 
 @pytest.mark.parametrize("fs", [250.0, 360.0, 1000.0])

@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
+from mitdb import excerpt_mv
 from tracevet.assessment.qrs import detect_qrs, match_beats, pan_tompkins_stages
 from tracevet.synthetic import (
     add_noise_at_snr,
@@ -32,10 +33,7 @@ def _score(rec, found):
 def _mitdb_excerpt_mv():
     # MIT-BIH Arrhythmia Database record 208 excerpt, 360 Hz, mV = (adu - 1024)/200
     # (SciPy documentation of scipy.misc.electrocardiogram).
-    from pathlib import Path
-
-    adu = np.load(Path(__file__).parent / "data" / "mitdb-208-excerpt.npz")["ecg"]
-    return (adu.astype(np.float64) - 1024.0) / 200.0, 360.0
+    return excerpt_mv(), 360.0
 
 
 def _noisy(rec, kind, seed):

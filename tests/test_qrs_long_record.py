@@ -8,20 +8,18 @@ record itself must reach the chunking step as given.
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 
+from mitdb import excerpt_mv
 from tracevet.assessment import qrs
 from tracevet.assessment.qrs import detect_qrs
 
-DATA = Path(__file__).resolve().parent / "data"
 
 
 def _mitdb_mv() -> np.ndarray:
-    # MIT-BIH 208 excerpt, 360 Hz: (raw - 1024) / 200 gives millivolts (tests/data/README.md)
-    raw = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"].astype(np.float64)
-    return (raw - 1024.0) / 200.0
+    # MIT-BIH 208 excerpt, 360 Hz, in mV (tests/mitdb.py)
+    return excerpt_mv()
 
 
 def test_float32_record_reaches_the_chunked_filters_without_a_float64_copy(monkeypatch):

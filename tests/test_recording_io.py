@@ -3,15 +3,14 @@
 from __future__ import annotations
 
 from datetime import datetime
-from pathlib import Path
 
 import numpy as np
 import pytest
 
+import mitdb
 from tracevet.errors import InputError
 from tracevet.recording import Recording, read_recording, write_recording
 
-DATA = Path(__file__).parent / "data"
 
 
 def _rec(n=1000, ch=2, fs=250.0, units="mV", kind="ecg"):
@@ -65,8 +64,7 @@ def test_csv_time_column_gives_rate(tmp_path):
 def test_shipped_excerpt_matches_documented_statistics():
     # Source: SciPy docstring of scipy.misc.electrocardiogram (MIT-BIH record 208 excerpt):
     # mean -0.16510875 mV, standard deviation 0.5992473991177294 mV; mV = (adu - 1024) / 200.
-    adu = np.load(DATA / "mitdb-208-excerpt.npz")["ecg"]
-    mv = (adu.astype(np.float64) - 1024) / 200
+    mv = mitdb.excerpt_mv()
     assert mv.size == 108000
     assert mv.mean() == pytest.approx(-0.16510875, rel=1e-9)
     assert mv.std() == pytest.approx(0.5992473991177294, rel=1e-12)

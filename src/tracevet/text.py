@@ -10,7 +10,6 @@ which renders such strings as plain ``rich.text.Text`` (never as markup).
 from __future__ import annotations
 
 import re
-import unicodedata
 
 # C0 controls (except none), DEL, C1 controls, plus Unicode format characters
 # such as bidirectional overrides (category Cf) that can disguise text.
@@ -45,10 +44,3 @@ def inert(value: object, max_len: int | None = None) -> str:
     if max_len is not None and len(text) > max_len:
         text = text[: max(0, max_len - 1)] + "…"
     return text
-
-
-def is_printable_name(value: str) -> bool:
-    """True when ``value`` holds no control or format characters."""
-    return not _CONTROL.search(value) and all(
-        unicodedata.category(c) not in {"Cc", "Cf", "Cs", "Co", "Cn"} for c in value
-    )

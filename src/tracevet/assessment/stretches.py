@@ -467,14 +467,13 @@ def assess_group(
         for flag in flags:
             result.stretches.append(StretchFlag(flag, start_s, end_s, int(stop - start)))
         if flags:
-            for key in ("r_amplitude_ratio", "st_change"):
-                value = metrics.get(key)
-                if value is None:
+            for rule in (RULE["r-peak-change"], RULE["st-level-change"]):
+                value = metrics.get(rule.metric)
+                if value is None or rule.measure is None:
                     continue
-                old = result.worst_metrics.get(key)
-                worse = abs(1.0 - value) if key == "r_amplitude_ratio" else abs(value)
-                if old is None or worse > (abs(1.0 - old) if key == "r_amplitude_ratio" else abs(old)):
-                    result.worst_metrics[key] = value
+                old = result.worst_metrics.get(rule.metric)
+                if old is None or rule.measure(value) > rule.measure(old):
+                    result.worst_metrics[rule.metric] = value
     return result
 
 

@@ -312,8 +312,3 @@ class Suggestion:
             "noise_removed_db": _number(self.best.noise_removed_db),
             "reason": self.reason,
         }
-
-
-def settings_of(data) -> CleaningSettings:
-    """Settings from a CleaningSettings or a dict."""
-    return data if isinstance(data, CleaningSettings) else CleaningSettings.from_dict(dict(data))

@@ -543,11 +543,6 @@ def flagged_stretches(assessment, duration_s: float) -> list[tuple[float, float]
     return sorted(set(out))
 
 
-def describe_windows(windows_s) -> str:
-    """``0-20 s, 43190-43210 s, 86380-86400 s``."""
-    return ", ".join(f"{a:.0f}-{b:.0f} s" for a, b in windows_s)
-
-
 __all__ = [
     "NO_BEATS",
     "NoBeats",
