@@ -638,9 +638,12 @@ def cut_end_beats(
     alike. With ``dr`` the change of the removed level (original minus
     cleaned) from the neighbours' median to the cut beat and ``do`` that of
     the original's level, a cleaning that removes none, part or all of the
-    original's change leaves ``dr`` between 0 and ``do``; the excess is the
-    distance of ``dr`` from that interval. Beats whose PQ anchor is outside
-    the trace are not read.
+    original's change leaves ``dr`` between 0 and ``do``; the distance of
+    ``dr`` from that interval, less the largest such distance of up to
+    :data:`CUT_REFERENCE_BEATS` whole beats farther in (each read the same way
+    against its own inward neighbours: what the record's own wander does to
+    this reading), is the excess. Beats whose PQ anchor is outside the trace
+    are not read.
     """
     out: list[tuple[int, float]] = []
     m = pre + post + 1
