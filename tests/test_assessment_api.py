@@ -21,7 +21,8 @@ FLAG_KEYS = {"id", "severity", "message", "value", "limit", "source", "where", "
 
 
 def test_prd_prdn_worked_example():
-    # Computed by hand (PRD and PRDN definitions, common practice; docs/reference-values.md, section 3):
+    # Computed by hand (PRD and PRDN definitions, common practice; PRD as in Zigel, Cohen & Katz 2000,
+    # IEEE TBME 47(11):1424-1430):
     # x = (1, 2, 3, 4), x_hat = (1, 2, 3, 3): sum (x - x_hat)^2 = 1, sum x^2 = 30,
     # mean x = 2.5, sum (x - mean)^2 = 2.25 + 0.25 + 0.25 + 2.25 = 5.
     x = np.array([1.0, 2.0, 3.0, 4.0])
@@ -35,7 +36,7 @@ def test_prd_prdn_worked_example():
 
 
 def test_prd_depends_on_offset_prdn_does_not():
-    # PRD depends on the DC offset of x, PRDN does not (common practice; docs/reference-values.md, section 3).
+    # PRD depends on the DC offset of x, PRDN does not (common practice: PRDN subtracts the mean of x).
     rng = np.random.default_rng(0)
     x = rng.standard_normal(1000)
     x_hat = x + 0.05 * rng.standard_normal(1000)

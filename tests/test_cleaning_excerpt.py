@@ -27,7 +27,7 @@ def excerpt_mv() -> np.ndarray:
 
 def _snr_db(reference: np.ndarray, estimate: np.ndarray) -> float:
     # SNR = 10 log10(sum x^2 / sum (x_hat - x)^2) on zero-mean signals (common practice;
-    # PRD and SNR are computed on zero-offset data: docs/reference-values.md, section 3).
+    # PRD and SNR are computed on zero-offset data, else the DC offset inflates them).
     x = reference - reference.mean()
     e = (estimate - estimate.mean()) - x
     return 10 * np.log10(np.sum(x**2) / np.sum(e**2))

@@ -59,8 +59,8 @@ def test_baseline_cutoff_is_the_minus_3db_point_of_the_zero_phase_response(cutof
 
 def test_default_baseline_keeps_the_diagnostic_band():
     # Kligfield et al. 2007 (AHA/ACCF/HRS, JACC 49:1109-1127) allow a 0.67 Hz cutoff only with linear-phase
-    # filtering; about -0.9 dB at 0.67 Hz for diagnostic use as summarised in a 2009 J Electrocardiol abstract
-    # (docs/reference-values.md, section 2). The default loses far less.
+    # filtering; about -0.9 dB at 0.67 Hz for diagnostic use, as summarised in the abstract of a 2009
+    # J Electrocardiol article on DC-coupled ECG amplifiers. The default loses far less.
     fs = 360.0
     _, h = signal.sosfreqz(baseline_sos(fs, DEFAULT_SETTINGS.baseline_cutoff_hz), worN=[0.67], fs=fs)
     assert 20 * np.log10(np.abs(h[0]) ** 2) > -0.1

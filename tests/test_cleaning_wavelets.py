@@ -87,7 +87,7 @@ def test_thresholded_dwt_equals_pywavelets_pipeline(wavelet):
         # Source: PyWavelets pywt.threshold docstring, data = linspace(1, 4, 7), value 2.
         ("soft", [0, 0, 0, 0.5, 1.0, 1.5, 2.0]),
         ("hard", [0, 0, 2.0, 2.5, 3.0, 3.5, 4.0]),
-        # garrote x - lam^2 / x (Gao 1998, JCGS 7:469-488), worked in docs/reference-values.md, section 1.
+        # garrote x - lam^2 / x (Gao 1998, JCGS 7:469-488), computed by hand: 2.5 - 4/2.5 = 0.9.
         ("garrote", [0, 0, 0, 0.9, 1.6666667, 2.3571429, 3.0]),
     ],
 )
