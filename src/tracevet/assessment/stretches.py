@@ -569,10 +569,10 @@ def baseline_excursions(
     n = original.size
     edge = max(1, int(round(0.03 * fs)))
     whole = (centres >= pre) & (centres < n - post)  # beats with their whole window (anchors) in the trace
+    if np.count_nonzero(whole) < 2 or warn is None:
+        return Excursions(None, [], 0, 0, 0.0)
     cut = cut_end_beats(original, cleaned, centres, labels, whole, pre, post, iso, edge)
     centres, labels = centres[whole], labels[whole]
-    if centres.size < 2 or warn is None:
-        return Excursions(None, [], 0, 0, 0.0)
     lx = anchor_levels(original, centres, pre, post, iso, edge)
     ly = anchor_levels(cleaned, centres, pre, post, iso, edge)
     times = centres / fs
@@ -662,14 +662,9 @@ def cut_end_beats(
         pool = centres[pool[: 2 * CUT_NEIGHBOURS + CUT_REFERENCE_BEATS]].astype(np.int64)
         if pool.size < CUT_NEIGHBOURS + 1:
             continue
-
-        def level(signal, at, anchors=anchors):
-            parts = [signal[at[:, None] - pre + np.arange(*spans[a])[None, :]].astype(np.float64).mean(axis=1)
-                     for a in anchors]
-            return np.mean(parts, axis=0)
-
-        lx = level(original, np.concatenate([[c], pool]))
-        ly = level(cleaned, np.concatenate([[c], pool]))
+        at = np.concatenate([[c], pool]) - pre
+        reads = [spans[a] for a in anchors]
+        lx, ly = _anchors_mean(original, at, reads), _anchors_mean(cleaned, at, reads)
         # Position 0 is the cut beat; the reference beats start CUT_NEIGHBOURS whole beats inward,
         # out of reach of an excursion that decays within a few beats.
         targets = np.concatenate([[0], np.arange(CUT_NEIGHBOURS + 1, lx.size - CUT_NEIGHBOURS)])
@@ -677,6 +672,12 @@ def cut_end_beats(
         reference = float(np.max(excess[1:])) if excess.size > 1 else 0.0
         out.append((c, max(0.0, float(excess[0]) - reference)))
     return out
+
+
+def _anchors_mean(signal: np.ndarray, starts: np.ndarray, reads: list) -> np.ndarray:
+    """Mean over ``reads`` (``(first, stop)`` offsets) of each anchor's mean, for windows starting at ``starts``."""
+    parts = [signal[starts[:, None] + np.arange(a, b)[None, :]].astype(np.float64).mean(axis=1) for a, b in reads]
+    return np.mean(parts, axis=0)
 
 
 def _outside_change(lx: np.ndarray, ly: np.ndarray, targets: np.ndarray) -> np.ndarray:
